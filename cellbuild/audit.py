@@ -1,0 +1,294 @@
+"""Checks of a built structure, computed from its coordinates.
+
+Two independent routes meet here. The *expected* coordination of every atom
+comes from topology: the lattice's neighbour offsets (geometry of the basis)
+applied to the grid of occupied site ids, so a vacancy lowers its neighbours'
+count by one and an interstitial raises it. The *counted* coordination comes
+from the Cartesian coordinates alone, through the periodic neighbour engine.
+The audit passes only when they agree atom by atom, among other checks.
+"""
+from __future__ import annotations
+
+import math
+from dataclasses import dataclass, field
+from functools import lru_cache
+from itertools import product
+
+import numpy as np
+
+from . import neighbours
+from .build import AVOGADRO, ANGSTROM3_TO_CM3, Plan, replicate, standard_atomic_weight
+from .defects import Placement
+from .lattices import LATTICES, packing_fraction, shells, site_table
+from .structure import Structure
+
+#: Pairs listed in the report when closer than the threshold (more are counted).
+MAX_CLOSE_PAIRS_LISTED = 20
+
+
+@dataclass(frozen=True)
+class Check:
+    """One named check with its outcome and a one-line explanation."""
+
+    name: str
+    passed: bool
+    detail: str
+
+    def as_dict(self) -> dict:
+        return {"name": self.name, "passed": bool(self.passed), "detail": self.detail}
+
+
+@dataclass(frozen=True)
+class Audit:
+    """The checks and the measured quantities of one structure (JSON-ready ``values``)."""
+
+    checks: tuple[Check, ...]
+    values: dict = field(default_factory=dict)
+
+    @property
+    def passed(self) -> bool:
+        return all(c.passed for c in self.checks)
+
+
+# ----------------------------------------------------------------------------- topology
+
+
+@lru_cache(maxsize=None)
+def neighbour_offsets(lattice: str) -> tuple[tuple[int, tuple[int, int, int], int], ...]:
+    """Grid-site neighbour table within the audit cutoff, from the basis geometry.
+
+    Returns entries ``(s, (di, dj, dk), t)``: site ``t`` of the cell displaced by
+    ``(di, dj, dk)`` lies within the cutoff (midway between the first two shells
+    of the lattice) of site ``s``. Sites include the interstitial sites.
+    """
+    frac, _, _ = site_table(lattice)
+    cutoff = shells(lattice).audit_cutoff
+    span = math.ceil(cutoff) + 1
+    cells = np.array(list(product(range(-span, span + 1), repeat=3)))
+    entries = []
+    for s, origin in enumerate(frac):
+        # (cells, sites) distances from site s to every site of the nearby cells
+        d = np.linalg.norm(cells[:, None, :] + frac[None, :, :] - origin, axis=2)
+        ci, t = np.nonzero((d < cutoff) & (d > 1e-9))
+        entries += [(s, tuple(int(x) for x in cells[c]), int(u)) for c, u in zip(ci, t)]
+    return tuple(entries)
+
+
+def expected_coordination(structure: Structure, lattice: str,
+                          repeat: tuple[int, int, int]) -> np.ndarray:
+    """Per-atom neighbour count implied by which grid sites are occupied.
+
+    Uses array shifts of the occupancy grid: cost linear in the number of cells
+    times the number of neighbour offsets; no per-atom Python loop.
+    """
+    n_grid = len(site_table(lattice)[0])
+    shape = (*repeat, n_grid)
+    occupied = np.zeros(math.prod(shape), dtype=bool)
+    occupied[structure.site] = True
+    occupied = occupied.reshape(shape)
+    present = occupied.reshape(-1, n_grid).any(axis=0)
+    expected = np.zeros(shape, dtype=np.int16)
+    for s, (di, dj, dk), t in neighbour_offsets(lattice):
+        if present[s] and present[t]:
+            # expected[i, j, k, s] += occupied[i + di, j + dj, k + dk, t]
+            expected[..., s] += np.roll(occupied[..., t], (-di, -dj, -dk), axis=(0, 1, 2))
+    return expected.reshape(-1)[structure.site].astype(np.int32)
+
+
+# ----------------------------------------------------------------------------- the audit
+
+
+def audit(plan: Plan, structure: Structure, placements: list[Placement],
+          *, workers: int = 2) -> Audit:
+    """Run every check on ``structure``, built from ``plan`` with ``placements``."""
+    recipe = plan.recipe
+    lattice, a = recipe.crystal.lattice, plan.lattice_constant
+    geometry = shells(lattice)
+    cutoff = geometry.audit_cutoff * a
+    checks: list[Check] = []
+    values: dict = {}
+
+    unit = _unit_cell_facts(lattice, a, recipe.crystal.element, workers)
+    values.update(unit.pop("values"))
+    checks += unit.pop("checks")
+    checks.append(_atoms_per_cell_check(plan, structure, placements))
+
+    composition = structure.composition()
+    values["composition"] = composition
+    checks.append(_composition_check(plan, composition, placements))
+
+    lengths = np.linalg.norm(structure.cell, axis=1)
+    values["cell_lengths"] = [float(x) for x in lengths]
+    checks.append(_cell_check(plan, structure.cell))
+
+    density = _density(structure)
+    values["density"] = density
+    if recipe.crystal.density is not None and not placements:
+        ok = math.isclose(density, recipe.crystal.density, rel_tol=1e-9)
+        checks.append(Check("density", ok,
+                            f"{density:.6f} g/cm^3 from atoms and volume; asked {recipe.crystal.density}"))
+
+    counted = neighbours.coordination_counts(structure.cell, structure.positions, cutoff,
+                                             workers=workers)
+    expected = expected_coordination(structure, lattice, plan.repeat)
+    mismatched = int(np.count_nonzero(counted != expected))
+    values["coordination"] = _coordination_values(structure, counted, cutoff, mismatched)
+    checks.append(Check(
+        "coordination", mismatched == 0,
+        f"{mismatched} of {structure.n_atoms} atoms have a neighbour count (within "
+        f"{cutoff:.4f} Angstrom, from coordinates) that differs from the lattice topology"))
+
+    checks.append(_distance_check(recipe, structure, geometry.nearest * a, values, workers))
+    return Audit(tuple(checks), values)
+
+
+def _unit_cell_facts(lattice: str, a: float, element: str, workers: int) -> dict:
+    """Atoms per cell, nearest-neighbour distance, ideal coordination, packing and
+    space group, measured on one perfect conventional cell built by the same code."""
+    cell = replicate(lattice, a, (1, 1, 1), symbols=(element,))
+    geometry = shells(lattice)
+    d_nn, _, _ = neighbours.min_distance(cell.cell, cell.positions, workers=1)
+    counts = neighbours.coordination_counts(cell.cell, cell.positions, geometry.audit_cutoff * a,
+                                            workers=1)
+    z = cell.n_atoms
+    packing = z * (4.0 / 3.0) * math.pi * (d_nn / 2.0) ** 3 / cell.volume
+    symbol, number = spacegroup(cell)
+    expected_symbol, expected_number = LATTICES[lattice].space_group
+    uniform = bool(np.all(counts == counts[0]))
+    checks = [
+        Check("nearest_neighbour_distance",
+              math.isclose(d_nn, geometry.nearest * a, rel_tol=1e-9),
+              f"{d_nn:.6f} Angstrom measured; {geometry.nearest:.6f} a from the basis geometry"),
+        Check("ideal_coordination", uniform and int(counts[0]) == geometry.coordination,
+              f"every atom of the perfect cell has {sorted(set(counts.tolist()))} neighbours; "
+              f"first shell of the basis geometry holds {geometry.coordination}"),
+        Check("space_group", number == expected_number,
+              f"spglib finds {symbol} ({number}) for the perfect crystal; "
+              f"{LATTICES[lattice].title} is {expected_symbol} ({expected_number})"),
+    ]
+    values = {
+        "atoms_per_cell": z,
+        "nearest_neighbour_distance": d_nn,
+        "ideal_coordination": int(counts[0]),
+        "packing_fraction": packing,
+        "packing_fraction_ideal": packing_fraction(lattice),
+        "space_group": {"symbol": symbol, "number": number},
+    }
+    return {"checks": checks, "values": values}
+
+
+def spacegroup(structure: Structure, symprec: float = 1e-5) -> tuple[str, int]:
+    """International symbol and number that spglib finds from the coordinates."""
+    import warnings
+
+    import spglib
+
+    with warnings.catch_warnings():
+        # spglib 2.x warns about its error-handling mode on every call
+        warnings.simplefilter("ignore", DeprecationWarning)
+        data = spglib.get_symmetry_dataset(
+            (structure.cell, structure.fractional(), structure.species), symprec=symprec)
+    if data is None:
+        return "unknown", 0
+    return str(data.international), int(data.number)
+
+
+def _atoms_per_cell_check(plan: Plan, structure: Structure, placements) -> Check:
+    """Every conventional cell holds the basis count, counting vacant sites back in.
+
+    Atoms are assigned to cells from their coordinates; interstitials (known from
+    the placements) are left out.
+    """
+    a = plan.lattice_constant
+    n_interstitial = sum(p.count for p in placements if p.kind == "interstitial")
+    lattice_atoms = structure.positions[: structure.n_atoms - n_interstitial]
+    vacant = np.concatenate([p.site_ids for p in placements if p.kind == "vacancy"] or
+                            [np.empty(0, np.int64)])
+    from .build import site_positions
+
+    points = np.concatenate([lattice_atoms, site_positions(
+        plan.recipe.crystal.lattice, a, plan.repeat, vacant)])
+    idx = np.floor(points / a + 1e-9).astype(np.int64) % np.array(plan.repeat)
+    n1, n2, n3 = plan.repeat
+    cell = (idx[:, 0] * n2 + idx[:, 1]) * n3 + idx[:, 2]
+    per_cell = np.bincount(cell, minlength=plan.n_cells)
+    z = LATTICES[plan.recipe.crystal.lattice].n_basis
+    low, high = int(per_cell.min()), int(per_cell.max())
+    return Check("atoms_per_cell", low == high == z,
+                 f"{low}..{high} lattice sites per conventional cell from coordinates "
+                 f"(vacant sites counted); the basis has {z}")
+
+
+def _composition_check(plan: Plan, composition: dict[str, int], placements) -> Check:
+    expected: dict[str, int] = {plan.recipe.crystal.element: plan.n_sites}
+    for p in placements:
+        if p.kind in ("vacancy", "substitution"):
+            expected[p.on] -= p.count
+        if p.kind in ("substitution", "interstitial"):
+            expected[p.element] = expected.get(p.element, 0) + p.count
+    expected = {k: v for k, v in expected.items() if v}
+    ok = composition == expected
+    return Check("composition", ok,
+                 f"counted {_formula(composition)}; the recipe asks {_formula(expected)}")
+
+
+def _formula(composition: dict[str, int]) -> str:
+    return " ".join(f"{k}{v}" for k, v in composition.items()) or "nothing"
+
+
+def _cell_check(plan: Plan, cell: np.ndarray) -> Check:
+    expected = np.diag(np.array(plan.repeat, dtype=float) * plan.lattice_constant)
+    ok = bool(np.allclose(cell, expected, rtol=0, atol=1e-9 * plan.lattice_constant))
+    lengths = ", ".join(f"{x:.6f}" for x in np.linalg.norm(cell, axis=1))
+    return Check("cell_lengths", ok,
+                 f"box {lengths} Angstrom, orthogonal: {ok}; expected repeat x a = "
+                 + " x ".join(str(n) for n in plan.repeat) + f" x {plan.lattice_constant:.6f}")
+
+
+def _density(structure: Structure) -> float:
+    """Mass density in g/cm^3 from the atoms present and the cell volume."""
+    masses = np.array([standard_atomic_weight(s) for s in structure.symbols])
+    mass = float(structure.counts() @ masses)  # g/mol in the cell
+    return mass / (AVOGADRO * structure.volume * ANGSTROM3_TO_CM3)
+
+
+def _coordination_values(structure: Structure, counted: np.ndarray, cutoff: float,
+                         mismatched: int) -> dict:
+    return {
+        "cutoff": cutoff,
+        "histogram": histogram(counted),
+        "by_species": {
+            sym: histogram(counted[structure.species == code])
+            for code, sym in enumerate(structure.symbols)
+            if np.any(structure.species == code)
+        },
+        "mismatched": mismatched,
+    }
+
+
+def histogram(counts: np.ndarray) -> dict[str, int]:
+    """{"12": number of atoms with 12 neighbours, ...} in ascending order."""
+    if counts.size == 0:
+        return {}
+    tally = np.bincount(counts, minlength=int(counts.max()) + 1)
+    return {str(k): int(v) for k, v in enumerate(tally) if v}
+
+
+def _distance_check(recipe, structure: Structure, d_nn: float, values: dict,
+                    workers: int) -> Check:
+    threshold = recipe.checks.min_distance or 0.5 * d_nn
+    d, i, j = neighbours.min_distance(structure.cell, structure.positions, workers=workers)
+    pi, pj, pd = neighbours.close_pairs(structure.cell, structure.positions, threshold,
+                                        workers=workers)
+    values["min_distance"] = d
+    values["min_distance_pair"] = [int(i), int(j)]
+    values["close_pairs"] = {
+        "threshold": threshold,
+        "count": int(pd.size),
+        "pairs": [[int(x), int(y), float(z)] for x, y, z in
+                  zip(pi[:MAX_CLOSE_PAIRS_LISTED], pj[:MAX_CLOSE_PAIRS_LISTED],
+                      pd[:MAX_CLOSE_PAIRS_LISTED])],
+    }
+    return Check("min_distance", pd.size == 0,
+                 f"closest pair {d:.4f} Angstrom (atoms {i} and {j}); {pd.size} pairs closer "
+                 f"than {threshold:.4f}")

@@ -1,0 +1,260 @@
+"""Seeded placement of vacancies, substitutions and interstitials.
+
+All randomness comes from one ``numpy.random.Generator`` (PCG64) made from the
+recipe's seed and consumed in a fixed order: vacancies, substitutions in recipe
+order, interstitials in recipe order. The same recipe and seed therefore give
+the same structure (for a given numpy version: numpy keeps PCG64's stream
+stable, and ``Generator.permutation`` has been stable across releases).
+"""
+from __future__ import annotations
+
+import math
+from dataclasses import dataclass
+
+import numpy as np
+
+from .build import Plan, site_positions
+from .errors import InputError
+from .lattices import LATTICES, site_table
+from .recipe import Amount, Recipe
+from .structure import Structure
+
+
+@dataclass(frozen=True)
+class Placement:
+    """One defect request as placed.
+
+    Attributes:
+        kind: ``vacancy``, ``substitution`` or ``interstitial``.
+        element: the element placed (for vacancies, the element removed).
+        on: the element whose sites were used (interstitials: the site kind).
+        key: the recipe key of the request, for messages.
+        asked: the request as given: {"count": n} or {"fraction": f}.
+        site_ids: grid site ids used (see :mod:`cellbuild.build`), sorted.
+    """
+
+    kind: str
+    element: str
+    on: str
+    key: str
+    asked: dict
+    site_ids: np.ndarray
+
+    @property
+    def count(self) -> int:
+        return int(self.site_ids.size)
+
+
+@dataclass(frozen=True)
+class Request:
+    kind: str
+    element: str
+    on: str
+    key: str
+    amount: Amount
+
+
+def requests(recipe: Recipe) -> list[Request]:
+    """The recipe's defect requests in placement order."""
+    d = recipe.defects
+    out = []
+    if d.vacancies:
+        out.append(Request("vacancy", d.vacancies.on, d.vacancies.on, "defects.vacancies",
+                           d.vacancies.amount))
+    for i, s in enumerate(d.substitutions):
+        out.append(Request("substitution", s.element, s.on, f"defects.substitutions[{i}]",
+                           s.amount))
+    for i, s in enumerate(d.interstitials):
+        out.append(Request("interstitial", s.element, s.site, f"defects.interstitials[{i}]",
+                           s.amount))
+    return out
+
+
+def round_half_up(x: float) -> int:
+    """Nearest integer, halves rounded up (not to even), as users expect from 'nearest'."""
+    return int(math.floor(x + 0.5))
+
+
+def requested_count(amount: Amount, n_sites: int) -> int:
+    """Defects asked for: the count, or the fraction of ``n_sites`` rounded to nearest."""
+    if amount.count is not None:
+        return amount.count
+    return round_half_up(amount.fraction * n_sites)
+
+
+def _asked(amount: Amount) -> dict:
+    return {"count": amount.count} if amount.count is not None else {"fraction": amount.fraction}
+
+
+def _pool_sizes(plan: Plan) -> dict[str, int]:
+    """Sites available to each request target before any defect is placed."""
+    lat = LATTICES[plan.recipe.crystal.lattice]
+    sizes = {plan.recipe.crystal.element: plan.n_sites}
+    for kind, sites in lat.interstitials.items():
+        sizes[kind] = len(sites) * plan.n_cells
+    return sizes
+
+
+def planned_counts(plan: Plan) -> list[tuple[Request, int]]:
+    """Each request with the number of defects it will place; refuses impossible requests."""
+    pools = _pool_sizes(plan)
+    used: dict[str, int] = {}
+    out = []
+    for req in requests(plan.recipe):
+        if req.on not in pools:
+            raise InputError(
+                f"`{req.on}` has no sites in the perfect crystal",
+                key=f"{req.key}.on", value=req.on,
+                hint=f"sites can be taken from {plan.recipe.crystal.element}",
+                file=plan.recipe.source)
+        n = requested_count(req.amount, pools[req.on])
+        left = pools[req.on] - used.get(req.on, 0)
+        if n > left:
+            what = "count" if req.amount.count is not None else "fraction"
+            raise InputError(
+                f"asks for {n:,} sites but only {left:,} {req.on} sites are left",
+                key=f"{req.key}.{what}", value=req.amount.count if what == "count" else req.amount.fraction,
+                hint=f"at most {left:,} can be placed", file=plan.recipe.source)
+        used[req.on] = used.get(req.on, 0) + n
+        out.append((req, n))
+    return out
+
+
+def place_defects(plan: Plan, perfect: Structure) -> tuple[Structure, list[Placement]]:
+    """Apply the recipe's defects to the perfect supercell, seeded by ``recipe.seed``.
+
+    Returns the defective structure (vacancies removed, substituted species
+    changed, interstitials appended in site order) and the placements.
+    """
+    recipe = plan.recipe
+    counts = planned_counts(plan)
+    if not counts:
+        return perfect, []
+    rng = np.random.default_rng(recipe.seed)
+    picker = _Picker(plan, rng)
+    placements = [
+        Placement(req.kind, req.element, req.on, req.key, _asked(req.amount),
+                  np.sort(picker.pick(req, n)))
+        for req, n in counts
+    ]
+    return apply(plan, perfect, placements), placements
+
+
+def apply(plan: Plan, perfect: Structure, placements: list[Placement]) -> Structure:
+    """The structure with ``placements`` applied to the perfect crystal ``perfect``."""
+    n_grid = len(site_table(plan.recipe.crystal.lattice)[0])
+    n_basis = LATTICES[plan.recipe.crystal.lattice].n_basis
+    symbols = perfect.symbols
+    species = perfect.species.copy()
+    keep = np.ones(perfect.n_atoms, dtype=bool)
+    new_sites, new_species = [], []
+    for p in placements:
+        if p.kind == "interstitial":
+            new_sites.append(p.site_ids)
+            new_species.append(np.full(p.count, symbols.index(p.element), dtype=np.int32))
+            continue
+        # perfect-crystal atoms are in site order, n_basis per cell
+        cell, s = np.divmod(p.site_ids, n_grid)
+        index = cell * n_basis + s
+        if p.kind == "vacancy":
+            keep[index] = False
+        else:
+            species[index] = symbols.index(p.element)
+    positions, site = perfect.positions[keep], perfect.site[keep]
+    species = species[keep]
+    if new_sites:
+        extra = np.concatenate(new_sites)
+        order = np.argsort(extra, kind="stable")
+        extra = extra[order]
+        positions = np.concatenate([positions, site_positions(
+            plan.recipe.crystal.lattice, plan.lattice_constant, plan.repeat, extra)])
+        species = np.concatenate([species, np.concatenate(new_species)[order]])
+        site = np.concatenate([site, extra])
+    return Structure(perfect.cell, positions, species, symbols, site)
+
+
+class _Picker:
+    """Draws distinct grid sites for successive requests, optionally keeping all
+    defects at least ``min_separation`` apart (periodic distance)."""
+
+    def __init__(self, plan: Plan, rng: np.random.Generator) -> None:
+        self.plan = plan
+        self.rng = rng
+        self.lattice = plan.recipe.crystal.lattice
+        self.frac, self.kinds, self.starts = site_table(self.lattice)
+        self.taken: dict[str, np.ndarray] = {}
+        self.separation = plan.recipe.defects.min_separation
+        self.accepted = np.empty((0, 3))
+
+    def _pool(self, on: str) -> np.ndarray:
+        """All grid site ids of ``on`` (the host element or an interstitial kind)."""
+        n_grid = len(self.frac)
+        kind = "lattice" if on == self.plan.recipe.crystal.element else on
+        local = np.flatnonzero(np.array(self.kinds) == kind)
+        cells = np.arange(self.plan.n_cells, dtype=np.int64)
+        return (cells[:, None] * n_grid + local[None, :]).ravel()
+
+    def _free(self, on: str) -> np.ndarray:
+        pool = self._pool(on)
+        if on in self.taken:
+            pool = pool[~np.isin(pool, self.taken[on], assume_unique=True)]
+        return pool
+
+    def pick(self, req: Request, n: int) -> np.ndarray:
+        if n == 0:
+            return np.empty(0, dtype=np.int64)
+        free = self._free(req.on)
+        if self.separation is None:
+            chosen = free[self.rng.choice(free.size, size=n, replace=False)]
+        else:
+            chosen = self._pick_separated(req, free, n)
+        self.taken[req.on] = np.concatenate([self.taken.get(req.on, np.empty(0, np.int64)), chosen])
+        return chosen
+
+    def _pick_separated(self, req: Request, free: np.ndarray, n: int) -> np.ndarray:
+        """Random sequential placement with a periodic KD-tree, in batches.
+
+        Candidates come in a seeded random order. In each batch, a candidate is
+        accepted if it is far enough from every accepted defect and from every
+        earlier candidate of the batch that is still eligible; candidates that
+        lose only to a batch-mate are retried in the next batch, so the result
+        equals one-at-a-time placement in that random order, without a Python
+        loop per candidate.
+        """
+        from scipy.spatial import cKDTree
+
+        r = self.separation
+        box = np.array(self.plan.box)
+        order = free[self.rng.permutation(free.size)]
+        chosen: list[np.ndarray] = []
+        placed, cursor = 0, 0
+        deferred = np.empty(0, dtype=np.int64)
+        while placed < n and (cursor < order.size or deferred.size):
+            take = max(64, 2 * (n - placed))
+            batch = np.concatenate([deferred, order[cursor:cursor + take]])
+            cursor += take
+            pos = site_positions(self.lattice, self.plan.lattice_constant, self.plan.repeat,
+                                 batch) % box
+            ok = np.ones(batch.size, dtype=bool)
+            if self.accepted.size:
+                d, _ = cKDTree(self.accepted, boxsize=box).query(pos, distance_upper_bound=r)
+                ok = d >= r
+            batch, pos = batch[ok], pos[ok]
+            pairs = cKDTree(pos, boxsize=box).query_pairs(r, output_type="ndarray")
+            blocked = np.zeros(batch.size, dtype=bool)
+            blocked[pairs.max(axis=1)] = True  # a later candidate yields to an earlier one
+            # unblocked candidates win outright; blocked ones are undecided and
+            # are retried first in the next batch, against the grown accepted set
+            winners = np.flatnonzero(~blocked)[: n - placed]
+            deferred = batch[blocked]
+            chosen.append(batch[winners])
+            self.accepted = np.concatenate([self.accepted, pos[winners]])
+            placed += winners.size
+        if placed < n:
+            raise InputError(
+                f"only {placed:,} of {n:,} defects could be kept {r} Angstrom apart "
+                f"from each other and from earlier defects",
+                key="defects.min_separation", value=r,
+                hint=f"lower it, or ask for at most {placed:,} in `{req.key}`",
+                file=self.plan.recipe.source)
+        return np.concatenate(chosen)

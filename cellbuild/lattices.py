@@ -1,0 +1,186 @@
+"""Cubic lattices as data: basis, interstitial sites and expected space group.
+
+Each lattice is one table entry. Everything else (neighbour shells, nearest-
+neighbour distance, coordination, packing, touching-sphere radius) is derived
+from the basis by geometry in :func:`shells`, so adding a lattice is adding an
+entry here and a test with an outside check value.
+
+All fractional coordinates refer to the conventional cubic cell of side ``a``.
+"""
+from __future__ import annotations
+
+from dataclasses import dataclass
+from functools import lru_cache
+from itertools import permutations, product
+
+import numpy as np
+
+
+@dataclass(frozen=True)
+class Lattice:
+    """A cubic lattice.
+
+    Attributes:
+        name: recipe key (``sc``, ``bcc``, ``fcc``, ``diamond``).
+        title: human name.
+        basis: fractional coordinates of the atoms of the conventional cell.
+        interstitials: site kind -> fractional coordinates of those sites in
+            the conventional cell.
+        space_group: (Hermann-Mauguin symbol, International Tables number) that
+            the perfect crystal is expected to have; the audit compares it with
+            what spglib finds from coordinates.
+    """
+
+    name: str
+    title: str
+    basis: tuple[tuple[float, float, float], ...]
+    interstitials: dict[str, tuple[tuple[float, float, float], ...]]
+    space_group: tuple[str, int]
+
+    @property
+    def n_basis(self) -> int:
+        return len(self.basis)
+
+    def basis_array(self) -> np.ndarray:
+        return np.array(self.basis, dtype=np.float64)
+
+
+def _unique_sites(points) -> tuple[tuple[float, float, float], ...]:
+    """Sorted unique fractional sites wrapped into [0, 1)."""
+    wrapped = {tuple(float(c % 1.0) for c in p) for p in points}
+    return tuple(sorted(wrapped))
+
+
+_FCC_BASIS = ((0.0, 0.0, 0.0), (0.0, 0.5, 0.5), (0.5, 0.0, 0.5), (0.5, 0.5, 0.0))
+_CUBE_CENTRE_AND_EDGES = ((0.5, 0.5, 0.5), (0.5, 0.0, 0.0), (0.0, 0.5, 0.0), (0.0, 0.0, 0.5))
+
+LATTICES: dict[str, Lattice] = {
+    lat.name: lat
+    for lat in (
+        Lattice(
+            name="sc",
+            title="simple cubic",
+            basis=((0.0, 0.0, 0.0),),
+            interstitials={"cube-centre": ((0.5, 0.5, 0.5),)},
+            space_group=("Pm-3m", 221),
+        ),
+        Lattice(
+            name="bcc",
+            title="body-centred cubic",
+            basis=((0.0, 0.0, 0.0), (0.5, 0.5, 0.5)),
+            interstitials={
+                # face centres and edge centres
+                "octahedral": _unique_sites(
+                    set(permutations((0.5, 0.5, 0.0))) | set(permutations((0.5, 0.0, 0.0)))
+                ),
+                # one coordinate 0, one 1/2, one 1/4 or 3/4
+                "tetrahedral": _unique_sites(
+                    p for q in (0.25, 0.75) for p in permutations((0.0, 0.5, q))
+                ),
+            },
+            space_group=("Im-3m", 229),
+        ),
+        Lattice(
+            name="fcc",
+            title="face-centred cubic",
+            basis=_FCC_BASIS,
+            interstitials={
+                "octahedral": _CUBE_CENTRE_AND_EDGES,
+                "tetrahedral": _unique_sites(product((0.25, 0.75), repeat=3)),
+            },
+            space_group=("Fm-3m", 225),
+        ),
+        Lattice(
+            name="diamond",
+            title="diamond cubic",
+            basis=_FCC_BASIS + tuple(
+                (x + 0.25, y + 0.25, z + 0.25) for x, y, z in _FCC_BASIS
+            ),
+            # the empty tetrahedra of the structure: cube centre and edge centres
+            interstitials={"tetrahedral": _CUBE_CENTRE_AND_EDGES},
+            space_group=("Fd-3m", 227),
+        ),
+    )
+}
+
+
+@dataclass(frozen=True)
+class Shells:
+    """Neighbour shells of a lattice, distances in units of the lattice constant.
+
+    Attributes:
+        distances: shell radii, ascending (units of ``a``).
+        counts: neighbours in each shell, per atom.
+    """
+
+    distances: tuple[float, ...]
+    counts: tuple[int, ...]
+
+    @property
+    def nearest(self) -> float:
+        return self.distances[0]
+
+    @property
+    def coordination(self) -> int:
+        return self.counts[0]
+
+    @property
+    def audit_cutoff(self) -> float:
+        """Midway between the first and second shells (units of ``a``)."""
+        return 0.5 * (self.distances[0] + self.distances[1])
+
+
+@lru_cache(maxsize=None)
+def shells(name: str, n_shells: int = 4) -> Shells:
+    """Neighbour shells of lattice ``name`` from the basis geometry.
+
+    Distances from each basis atom to all atoms of the surrounding 5x5x5
+    conventional cells; every basis atom of these lattices sees the same shells,
+    which is verified here rather than assumed.
+    """
+    basis = LATTICES[name].basis_array()
+    offsets = np.array(list(product(range(-2, 3), repeat=3)), dtype=np.float64)
+    images = (offsets[:, None, :] + basis[None, :, :]).reshape(-1, 3)
+    per_atom = []
+    for origin in basis:
+        d = np.linalg.norm(images - origin, axis=1)
+        d = np.sort(d[d > 1e-9])
+        # group equal distances (to 1e-9 a), keep the exact value of each group
+        starts = np.flatnonzero(np.diff(d, prepend=-1.0) > 1e-9)
+        counts = np.diff(np.append(starts, len(d)))
+        radii = tuple(float(r) for r in d[starts[:n_shells]])
+        per_atom.append((radii, tuple(int(c) for c in counts[:n_shells])))
+    ref_r, ref_c = per_atom[0]
+    if any(c != ref_c or not np.allclose(r, ref_r, atol=1e-9) for r, c in per_atom):
+        raise AssertionError(f"basis atoms of {name} see different shells")
+    return Shells(*per_atom[0])
+
+
+def touching_radius_factor(name: str) -> float:
+    """Radius of touching spheres in units of ``a``: half the nearest-neighbour distance."""
+    return 0.5 * shells(name).nearest
+
+
+def packing_fraction(name: str) -> float:
+    """Fraction of the cell volume filled by touching spheres on the basis sites."""
+    r = touching_radius_factor(name)
+    return LATTICES[name].n_basis * (4.0 / 3.0) * np.pi * r**3
+
+
+def site_table(name: str) -> tuple[np.ndarray, tuple[str, ...], np.ndarray]:
+    """The grid of every site a structure of this lattice can occupy.
+
+    Returns:
+        fractional coordinates (n_sites_per_cell, 3) of the lattice basis followed
+        by each interstitial kind in table order; the kind of each site
+        (``"lattice"`` or the interstitial kind); and the start offset of each
+        kind in that order (lattice first).
+    """
+    lat = LATTICES[name]
+    parts = [lat.basis_array()]
+    kinds = ["lattice"] * lat.n_basis
+    for kind, sites in lat.interstitials.items():
+        parts.append(np.array(sites, dtype=np.float64))
+        kinds += [kind] * len(sites)
+    frac = np.concatenate(parts)
+    return frac, tuple(kinds), np.array([0] + [len(p) for p in parts]).cumsum()[:-1]

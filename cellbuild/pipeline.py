@@ -1,0 +1,230 @@
+"""The one-way pipeline: recipe -> plan -> structure -> defects -> audit -> files.
+
+Each stage is a plain function of the previous stage's value, so a notebook can
+call them one by one; :func:`make` runs them all and is what the command line
+and the batch runner call.
+"""
+from __future__ import annotations
+
+import hashlib
+import json
+import os
+from dataclasses import dataclass
+from pathlib import Path
+from typing import Callable
+
+import numpy as np
+
+from . import __version__
+from .audit import Audit, audit
+from .build import Plan, build_perfect, check_disk_space, resolve
+from .defects import Placement, place_defects, planned_counts
+from .errors import InputError
+from .fileio import write_bytes_atomic
+from .formats import WrittenFile, output_path, write_structure
+from .recipe import Recipe, load_recipe
+from .structure import Structure
+
+Progress = Callable[[str], None]
+
+
+@dataclass(frozen=True)
+class Built:
+    """A structure with everything known about how it was made."""
+
+    plan: Plan
+    structure: Structure
+    placements: list[Placement]
+
+
+@dataclass(frozen=True)
+class Result:
+    """The outcome of :func:`make`: the report (as written) and the files."""
+
+    built: Built
+    audit: Audit
+    report: dict
+    outputs: dict[str, WrittenFile]
+    report_path: Path
+
+    @property
+    def passed(self) -> bool:
+        return self.audit.passed
+
+
+def build(recipe: Recipe, *, strict: bool = False, progress: Progress | None = None) -> Built:
+    """Resolve, build the perfect supercell and place the defects (no files)."""
+    note = progress or (lambda phase: None)
+    plan = resolve(recipe, strict=strict)
+    planned_counts(plan)  # refuse impossible defect requests before allocating
+    note("build")
+    perfect = build_perfect(plan)
+    note("defects")
+    structure, placements = place_defects(plan, perfect)
+    return Built(plan, structure, placements)
+
+
+def planned_paths(recipe: Recipe, out_dir: str | os.PathLike) -> list[Path]:
+    """Every file :func:`make` would write for ``recipe`` in ``out_dir``."""
+    paths = [output_path(out_dir, recipe.name, key) for key in recipe.outputs]
+    paths.append(Path(out_dir) / f"{recipe.name}.report.json")
+    if recipe.defects.any:
+        paths.append(Path(out_dir) / f"{recipe.name}.defects.json")
+    return paths
+
+
+def check_outputs_free(recipes: list[Recipe], out_dir: str | os.PathLike, force: bool) -> None:
+    """Refuse existing outputs (unless ``force``) and unusable folders; writes nothing."""
+    out = Path(out_dir)
+    if out.exists() and not out.is_dir():
+        raise InputError("exists and is not a folder", key="--out", value=str(out))
+    if out.is_dir() and not os.access(out, os.W_OK | os.X_OK):
+        raise InputError("is not writable", key="--out", value=str(out))
+    if not force:
+        existing = [p for r in recipes for p in planned_paths(r, out) if p.exists()]
+        if existing:
+            raise InputError(
+                f"{len(existing)} output file(s) already exist, first {existing[0]}",
+                key="--out", value=str(out), hint="pass --force to replace them")
+
+
+def ensure_output_dir(out_dir: str | os.PathLike) -> None:
+    """Create the output folder (and parents) or refuse with an InputError."""
+    out = Path(out_dir)
+    try:
+        out.mkdir(parents=True, exist_ok=True)
+    except OSError as exc:
+        raise InputError(f"cannot be created ({exc.strerror})", key="--out",
+                         value=str(out)) from None
+    if not os.access(out, os.W_OK | os.X_OK):
+        raise InputError("is not writable", key="--out", value=str(out))
+
+
+def make(recipe: Recipe, out_dir: str | os.PathLike, *, force: bool = False,
+         strict: bool = False, recipe_sha256: str | None = None,
+         progress: Progress | None = None, workers: int = 2) -> Result:
+    """Build, audit and write one recipe; returns the result (report written too).
+
+    Raises :class:`InputError` before writing anything if the recipe cannot be
+    built or the outputs cannot be written.
+    """
+    note = progress or (lambda phase: None)
+    check_outputs_free([recipe], out_dir, force)
+    built = build(recipe, strict=strict, progress=note)
+    ensure_output_dir(out_dir)
+    check_disk_space(built.plan, out_dir)
+    note("audit")
+    result_audit = audit(built.plan, built.structure, built.placements, workers=workers)
+    outputs = {}
+    for key in recipe.outputs:
+        note(key)
+        outputs[key] = write_structure(built.structure, key, output_path(out_dir, recipe.name, key),
+                                       title=recipe.name)
+    if built.placements:
+        write_bytes_atomic(Path(out_dir) / f"{recipe.name}.defects.json",
+                           _json_bytes(defect_sites(built)))
+    report = make_report(built, result_audit, outputs, out_dir,
+                         recipe_sha256 or recipe_hash(recipe))
+    report_path = Path(out_dir) / f"{recipe.name}.report.json"
+    write_bytes_atomic(report_path, _json_bytes(report))
+    return Result(built, result_audit, report, outputs, report_path)
+
+
+def make_file(path: str | os.PathLike, out_dir: str | os.PathLike, **kwargs) -> Result:
+    """:func:`make` for a recipe file."""
+    return make(load_recipe(path), out_dir, **kwargs)
+
+
+def recipe_hash(recipe: Recipe) -> str:
+    """sha256 of the recipe file's bytes, or of the validated recipe when it has no file."""
+    if recipe.source and Path(recipe.source).is_file():
+        return hashlib.sha256(Path(recipe.source).read_bytes()).hexdigest()
+    return hashlib.sha256(repr(recipe).encode()).hexdigest()
+
+
+def make_report(built: Built, result: Audit, outputs: dict[str, WrittenFile],
+                out_dir: str | os.PathLike, recipe_sha256: str) -> dict:
+    """The report dictionary (JSON-ready); see the README for the fields."""
+    plan, structure, recipe = built.plan, built.structure, built.plan.recipe
+    v = result.values
+    report = {
+        "name": recipe.name,
+        "seed": recipe.seed,
+        "lattice": recipe.crystal.lattice,
+        "element": recipe.crystal.element,
+        "lattice_constant": plan.lattice_constant,
+        "lattice_constant_source": plan.lattice_constant_source,
+        "repeat": list(plan.repeat),
+        "n_atoms": structure.n_atoms,
+        "composition": v["composition"],
+        "types": list(structure.symbols),
+        "cell_lengths": v["cell_lengths"],
+        "volume": structure.volume,
+        "density": v["density"],
+        "atoms_per_cell": v["atoms_per_cell"],
+        "ideal_coordination": v["ideal_coordination"],
+        "packing_fraction": v["packing_fraction"],
+        "nearest_neighbour_distance": v["nearest_neighbour_distance"],
+        "coordination": v["coordination"],
+        "min_distance": v["min_distance"],
+        "min_distance_pair": v["min_distance_pair"],
+        "close_pairs": v["close_pairs"],
+        "space_group": v["space_group"],
+        "defects": [
+            {"kind": p.kind, "element": p.element, "on": p.on, "key": p.key,
+             "asked": p.asked, "placed": p.count}
+            for p in built.placements
+        ],
+        "defect_sites": f"{recipe.name}.defects.json" if built.placements else None,
+        "warnings": list(plan.warnings),
+        "checks": [c.as_dict() for c in result.checks],
+        "passed": result.passed,
+        "outputs": {
+            key: {"path": os.path.relpath(w.path, out_dir), "sha256": w.sha256, "bytes": w.bytes}
+            for key, w in outputs.items()
+        },
+        "versions": versions(),
+        "recipe_sha256": recipe_sha256,
+    }
+    return report
+
+
+def defect_sites(built: Built) -> dict:
+    """Where each defect went: grid site ids, atom ids (1-based, file order) and,
+    for vacancies and interstitials, Cartesian positions in Angstrom."""
+    from .build import site_positions
+
+    plan, structure = built.plan, built.structure
+    order = np.argsort(structure.site, kind="stable")
+    entries = []
+    for p in built.placements:
+        entry = {"kind": p.kind, "element": p.element, "on": p.on, "key": p.key,
+                 "site_ids": p.site_ids.tolist()}
+        if p.kind != "vacancy":
+            idx = order[np.searchsorted(structure.site, p.site_ids, sorter=order)]
+            entry["atom_ids"] = (idx + 1).tolist()
+        if p.kind != "substitution":
+            pos = site_positions(plan.recipe.crystal.lattice, plan.lattice_constant,
+                                 plan.repeat, p.site_ids)
+            entry["positions"] = np.round(pos, 10).tolist()
+        entries.append(entry)
+    return {"name": plan.recipe.name, "seed": plan.recipe.seed,
+            "site_numbering": "cell * sites_per_cell + site; cell = (i*n2 + j)*n3 + k",
+            "defects": entries}
+
+
+def versions() -> dict[str, str]:
+    """Versions of cellbuild and of the libraries that shape the outputs."""
+    from importlib.metadata import PackageNotFoundError, version
+
+    out = {"cellbuild": __version__}
+    for package in ("numpy", "scipy", "ase", "spglib"):
+        try:
+            out[package] = version(package)
+        except PackageNotFoundError:
+            out[package] = "missing"
+    return out
+
+
+def _json_bytes(data: dict) -> bytes:
+    return (json.dumps(data, indent=2, allow_nan=False) + "\n").encode()

@@ -1,0 +1,46 @@
+"""What `cellbuild plan` shows: a recipe resolved without building."""
+from __future__ import annotations
+
+from pathlib import Path
+
+from .build import Plan, resolve
+from .defects import planned_counts
+from .recipe import load_recipe
+
+
+def describe(plan: Plan) -> dict:
+    """JSON-ready description of a plan: sizes, counts and estimates (bytes)."""
+    recipe = plan.recipe
+    counts = planned_counts(plan)
+    n_atoms = plan.n_sites
+    defects = []
+    for req, n in counts:
+        if req.kind == "vacancy":
+            n_atoms -= n
+        elif req.kind == "interstitial":
+            n_atoms += n
+        defects.append({"kind": req.kind, "element": req.element, "on": req.on,
+                        "key": req.key, "placed": n})
+    scale = n_atoms / max(plan.n_sites, 1)
+    return {
+        "name": recipe.name,
+        "lattice": recipe.crystal.lattice,
+        "element": recipe.crystal.element,
+        "lattice_constant": plan.lattice_constant,
+        "lattice_constant_source": plan.lattice_constant_source,
+        "repeat": list(plan.repeat),
+        "box": list(plan.box),
+        "n_sites": plan.n_sites,
+        "n_atoms": n_atoms,
+        "defects": defects,
+        "outputs": list(recipe.outputs),
+        "estimated_memory_bytes": plan.estimated_memory,
+        "estimated_file_bytes": {k: int(v * scale) for k, v in plan.estimated_files.items()},
+        "warnings": list(plan.warnings),
+    }
+
+
+def describe_plans(path: str | Path, *, strict: bool = False) -> list[dict]:
+    """Plans for the recipe file at ``path`` (one per sweep point, once sweeps exist)."""
+    recipe = load_recipe(path)
+    return [describe(resolve(recipe, strict=strict))]
