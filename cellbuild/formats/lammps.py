@@ -1,0 +1,151 @@
+"""LAMMPS data file writer: atom_style atomic, metal units (Angstrom, g/mol).
+
+Layout::
+
+    <title>
+
+    N atoms
+    T atom types
+
+    0.0000000000 <lx> xlo xhi
+    0.0000000000 <ly> ylo yhi
+    0.0000000000 <lz> zlo zhi
+    <xy> <xz> <yz> xy xz yz        (only for a non-orthogonal box)
+
+    Masses
+
+    1 63.546  # Cu
+
+    Atoms  # atomic
+
+    <id> <type> <x> <y> <z>
+
+``T`` counts every symbol of the structure's type map, also those no atom
+carries, so that files of a series share their type numbers. Atom ids are
+1..N in structure order, type = species code + 1.
+
+A LAMMPS box has ``a`` along x and ``b`` in the xy plane (restricted
+triclinic). A cell not in that form is rotated into it, positions with it; a
+left-handed cell first has ``c`` negated (the same lattice, so positions are
+not mirrored). Positions are wrapped into the box. Tilt factors are written as
+they come out of the cell, not reduced to the shortest equivalent ones: older
+LAMMPS versions refuse a tilt above half the box length (``box tilt large``).
+"""
+from __future__ import annotations
+
+import math
+
+import numpy as np
+
+from ..structure import Structure
+from . import _text
+
+#: Decimals of Cartesian coordinates and box sizes in Angstrom: 1e-10 A
+#: resolution at any box size (up to 1e8 A, where int64 fixed point ends).
+DECIMALS = 10
+
+#: Fractional distance below an upper box face counted as on the lower face.
+_FACE = 2.0 ** -50
+
+
+def write(structure: Structure, handle, title: str) -> None:
+    """Write ``structure`` as a LAMMPS data file to binary ``handle``."""
+    _text.check_codes(structure.species, len(structure.symbols))
+    cell = right_handed(structure.cell)
+    box = lammps_box(cell)
+    handle.write(_header(structure, box, title).encode("ascii"))
+    # |coordinate| of a wrapped atom <= sum of |box components| along that axis
+    bound = max(sum(abs(v) for v in axis) for axis in box.T.tolist())
+    coordinate = _text.Fixed(_text.int_digits_for(bound, DECIMALS), DECIMALS)
+    types = _text.Text(tuple(str(t + 1) for t in range(len(structure.symbols))), right=True)
+    row = _text.Row([_text.Int(len(str(structure.n_atoms))), types,
+                     coordinate, coordinate, coordinate])
+    inverse = _text.inverse3(cell)
+    same_frame = np.array_equal(box, cell)
+
+    def columns(part: slice):
+        x, y, z = wrap_into_box(structure.positions[part], cell, inverse, box, same_frame)
+        ids = np.arange(part.start + 1, part.stop + 1, dtype=np.int64)
+        return [ids, structure.species[part], x, y, z]
+
+    _text.write_rows(handle, row, structure.n_atoms, columns)
+
+
+def right_handed(cell: np.ndarray) -> np.ndarray:
+    """The cell, with ``c`` negated if the vectors are left-handed (same lattice)."""
+    if _text.det3(cell) < 0:
+        return cell * np.array([[1.0], [1.0], [-1.0]])
+    return cell
+
+
+def lammps_box(cell: np.ndarray) -> np.ndarray:
+    """The right-handed ``cell`` rotated to LAMMPS's lower-triangular form.
+
+    Rows are a = (lx, 0, 0), b = (xy, ly, 0), c = (xz, yz, lz), Angstrom. A cell
+    already in that form is returned unchanged (bit for bit).
+    """
+    if cell[0, 1] == cell[0, 2] == cell[1, 2] == 0.0 and np.all(np.diag(cell) > 0):
+        return cell.copy()
+    a, b, c = cell.tolist()
+    dot = _text.dot3
+    lx = math.sqrt(dot(a, a))
+    xy = dot(b, a) / lx
+    ly = math.sqrt(dot(b, b) - xy * xy)
+    xz = dot(c, a) / lx
+    yz = (dot(b, c) - xy * xz) / ly
+    lz = math.sqrt(dot(c, c) - xz * xz - yz * yz)
+    return np.array([[lx, 0.0, 0.0], [xy, ly, 0.0], [xz, yz, lz]])
+
+
+def wrap_into_box(positions: np.ndarray, cell: np.ndarray, inverse: np.ndarray,
+                  box: np.ndarray, same_frame: bool) -> np.ndarray:
+    """Cartesian positions (A) wrapped into the cell, expressed in the box
+    frame, as a (3, n) array of x, y and z columns.
+
+    In the box's own frame, atoms are moved by whole lattice vectors only, so
+    atoms already inside keep their exact coordinates; otherwise the wrapped
+    fractional coordinates are multiplied by the box. An atom a rounding error
+    below the upper face (fractional 1 - 1e-15) goes to the lower face, so no
+    coordinate prints as the upper box bound.
+    """
+    frac = _text.linear3(positions.T, inverse)
+    shift = np.floor(frac + _FACE)
+    if same_frame:
+        if not shift.any():
+            return positions.T
+        return positions.T - _text.linear3(shift, cell)
+    return _text.linear3(frac - shift, box)
+
+
+def _numbers(*values: float) -> str:
+    return " ".join(_text.format_fixed(values, DECIMALS))
+
+
+def _header(structure: Structure, box: np.ndarray, title: str) -> str:
+    (lx, _, _), (xy, ly, _), (xz, yz, lz) = box
+    lines = [
+        _text.one_line(title, "LAMMPS data file"),
+        "",
+        f"{structure.n_atoms} atoms",
+        f"{len(structure.symbols)} atom types",
+        "",
+        f"{_numbers(0.0, lx)} xlo xhi",
+        f"{_numbers(0.0, ly)} ylo yhi",
+        f"{_numbers(0.0, lz)} zlo zhi",
+    ]
+    if xy != 0.0 or xz != 0.0 or yz != 0.0:
+        lines.append(f"{_numbers(xy, xz, yz)} xy xz yz")
+    lines += ["", "Masses", ""]
+    lines += [f"{t + 1} {_mass(s)!r}  # {s}" for t, s in enumerate(structure.symbols)]
+    if structure.n_atoms:  # LAMMPS wants no Atoms section without atoms
+        lines += ["", "Atoms  # atomic", ""]
+    return "\n".join(lines) + "\n"
+
+
+def _mass(symbol: str) -> float:
+    """Standard atomic weight in g/mol (ASE's table)."""
+    from ase.data import atomic_masses, atomic_numbers
+
+    if symbol not in atomic_numbers:
+        raise ValueError(f"{symbol!r} is not an element symbol; cannot give its mass")
+    return float(atomic_masses[atomic_numbers[symbol]])

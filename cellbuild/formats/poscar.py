@@ -1,0 +1,67 @@
+"""POSCAR writer, VASP 5 format with a species line and direct coordinates.
+
+Layout::
+
+    <title>
+    1.0
+      ax ay az                       (lattice vectors, Angstrom)
+      bx by bz
+      cx cy cz
+    Cu Fe                            (elements present, in type order)
+    32 16
+    Direct
+      0.000000000000  0.000000000000  0.000000000000
+
+Atoms are grouped by element in type order, keeping structure order within
+an element. Fractional coordinates are wrapped into [0, 1).
+"""
+from __future__ import annotations
+
+import numpy as np
+
+from ..structure import Structure
+from . import _text
+
+#: Decimals of fractional coordinates (see cif.FRACTION_DECIMALS).
+FRACTION_DECIMALS = 12
+#: Decimals of lattice vector components in Angstrom.
+CELL_DECIMALS = 12
+
+
+def write(structure: Structure, handle, title: str) -> None:
+    """Write ``structure`` as a VASP 5 POSCAR to binary ``handle``."""
+    _text.check_codes(structure.species, len(structure.symbols))
+    handle.write(_header(structure, title).encode("ascii"))
+    order = _grouped_order(structure.species)
+    inverse = _text.inverse3(structure.cell)
+    fraction = _text.Fixed(1, FRACTION_DECIMALS, signed=False)
+    row = _text.Row([fraction, fraction, fraction], indent=1)
+
+    def columns(part: slice):
+        positions = structure.positions[part if order is None else order[part]]
+        return list(_text.wrap_unit(_text.linear3(positions.T, inverse), FRACTION_DECIMALS))
+
+    _text.write_rows(handle, row, structure.n_atoms, columns)
+
+
+def _grouped_order(species: np.ndarray) -> np.ndarray | None:
+    """Atom order grouped by species code, stable; None if already grouped."""
+    if np.all(species[1:] >= species[:-1]):
+        return None
+    return np.argsort(species, kind="stable")
+
+
+def _header(structure: Structure, title: str) -> str:
+    composition = structure.composition()
+    default = "".join(f"{s}{n}" for s, n in composition.items()) or "structure"
+    vectors = _text.format_fixed(structure.cell.ravel(), CELL_DECIMALS)
+    width = max(len(v) for v in vectors)
+    lattice = ["  " + " ".join(v.rjust(width) for v in vectors[i:i + 3]) for i in (0, 3, 6)]
+    return "\n".join([
+        _text.one_line(title, default),
+        "1.0",
+        *lattice,
+        " ".join(composition),
+        " ".join(str(n) for n in composition.values()),
+        "Direct",
+    ]) + "\n"

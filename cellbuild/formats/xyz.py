@@ -1,0 +1,45 @@
+"""Extended XYZ writer.
+
+Layout::
+
+    N
+    Lattice="ax ay az bx by bz cx cy cz" Properties=species:S:1:pos:R:3 pbc="T T T" title="..."
+    Cu   0.0000000000   0.0000000000   0.0000000000
+
+Lattice vectors and Cartesian positions in Angstrom, positions as stored in
+the structure (not wrapped: extended XYZ keeps them as given).
+"""
+from __future__ import annotations
+
+from ..structure import Structure
+from . import _text
+
+#: Decimals of Cartesian values in Angstrom (see lammps.DECIMALS).
+DECIMALS = 10
+
+
+def write(structure: Structure, handle, title: str) -> None:
+    """Write ``structure`` as extended XYZ to binary ``handle``."""
+    _text.check_codes(structure.species, len(structure.symbols))
+    handle.write(_header(structure, title).encode("ascii"))
+    positions = structure.positions
+    # max |x| from max and min: no N x 3 temporary for abs()
+    top = max(float(positions.max()), -float(positions.min())) if positions.size else 0.0
+    coordinate = _text.Fixed(_text.int_digits_for(top, DECIMALS), DECIMALS)
+    row = _text.Row([_text.Text(structure.symbols), coordinate, coordinate, coordinate])
+
+    def columns(part: slice):
+        xyz = positions[part]
+        return [structure.species[part], xyz[:, 0], xyz[:, 1], xyz[:, 2]]
+
+    _text.write_rows(handle, row, structure.n_atoms, columns)
+
+
+def _header(structure: Structure, title: str) -> str:
+    lattice = " ".join(_text.format_fixed(structure.cell.ravel(), DECIMALS))
+    # Keep the title a plain quoted string for extended-XYZ parsers: no quotes
+    # or backslashes inside.
+    name = _text.one_line(title, "").replace('"', "'").replace("\\", "/")
+    comment = (f'Lattice="{lattice}" Properties=species:S:1:pos:R:3 pbc="T T T"'
+               + (f' title="{name}"' if name else ""))
+    return f"{structure.n_atoms}\n{comment}\n"
