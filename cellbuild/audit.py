@@ -278,8 +278,12 @@ def _distance_check(recipe, structure: Structure, d_nn: float, values: dict,
                     workers: int) -> Check:
     threshold = recipe.checks.min_distance or 0.5 * d_nn
     d, i, j = neighbours.min_distance(structure.cell, structure.positions, workers=workers)
-    pi, pj, pd = neighbours.close_pairs(structure.cell, structure.positions, threshold,
-                                        workers=workers)
+    if d >= threshold:  # the closest pair is far enough: no pair can be closer
+        pi = pj = np.zeros(0, np.int64)
+        pd = np.zeros(0)
+    else:
+        pi, pj, pd = neighbours.close_pairs(structure.cell, structure.positions, threshold,
+                                            workers=workers)
     values["min_distance"] = d
     values["min_distance_pair"] = [int(i), int(j)]
     values["close_pairs"] = {

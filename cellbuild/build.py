@@ -26,6 +26,9 @@ ANGSTROM3_TO_CM3 = 1e-24
 #: Peak bytes of memory per atom for a whole `make` (arrays, neighbour counts,
 #: one writer chunk); measured by benchmarks/bench_make.py, rounded up.
 BYTES_PER_ATOM = 400
+#: Hard limits (Angstrom): beyond them numbers no longer fit the fixed-width
+#: output fields with 1e-10 Angstrom resolution; far outside any real crystal.
+MIN_CONSTANT, MAX_CONSTANT, MAX_BOX = 0.01, 1000.0, 1.0e6
 #: Approximate bytes per atom of each output file (one line per atom).
 FILE_BYTES_PER_ATOM = {"lammps-data": 70, "cif": 60, "xyz": 60, "poscar": 48}
 
@@ -121,6 +124,12 @@ def resolve(recipe: Recipe, *, strict: bool = False) -> Plan:
     Refuses sizes that would not fit in this machine's memory.
     """
     a, source = lattice_constant(recipe)
+    if not MIN_CONSTANT <= a <= MAX_CONSTANT:
+        raise InputError(
+            f"gives a lattice constant of {a:.4g} Angstrom, outside what can be written "
+            f"({MIN_CONSTANT} to {MAX_CONSTANT:g})", key=_constant_key(recipe),
+            value=_constant_value(recipe, a), hint="check the units (Angstrom, g/cm^3)",
+            file=recipe.source)
     warnings = []
     if not 1.0 <= a <= 20.0:
         message = f"lattice constant {a:.4g} Angstrom is outside the plausible range 1 to 20"
@@ -144,6 +153,10 @@ def resolve(recipe: Recipe, *, strict: bool = False) -> Plan:
             key=f"size.{_size_key(recipe)}", value=_size_value(recipe),
             hint="choose a smaller size", file=recipe.source)
     box = tuple(float(n * a) for n in repeat)
+    if max(box) > MAX_BOX:
+        raise InputError(f"gives a box of {max(box):.4g} Angstrom, longer than {MAX_BOX:g}",
+                         key=f"size.{_size_key(recipe)}", value=_size_value(recipe),
+                         hint="choose a smaller size", file=recipe.source)
     return Plan(recipe, a, source, repeat, n_sites, n_atoms, box, memory, files,
                 tuple(warnings))
 

@@ -66,4 +66,5 @@ class InputError(Exception):
 def _show(value) -> str:
     """A short, single-line rendering of a recipe value for messages."""
     text = repr(value)
-    return text if len(text) <= 60 else text[:57] + "..."
+    # keep both ends of long values: a path's tail is often the informative part
+    return text if len(text) <= 240 else text[:150] + " ... " + text[-85:]

@@ -67,3 +67,52 @@ def sha256_file(path: str | os.PathLike, block: int = 1 << 22) -> str:
         while chunk := handle.read(block):
             digest.update(chunk)
     return digest.hexdigest()
+
+
+class StagedFiles:
+    """A group of files that appear together or not at all.
+
+    Each file is written to a temporary beside its target; :meth:`commit`
+    renames them all into place, and leaving the ``with`` block by an exception
+    removes every temporary, so a failure midway (a full disk, an interrupt)
+    changes none of the targets.
+    """
+
+    def __init__(self) -> None:
+        self._staged: list[tuple[str, Path]] = []
+
+    def __enter__(self) -> "StagedFiles":
+        return self
+
+    def __exit__(self, exc_type, exc, tb) -> None:
+        self.discard()
+
+    @contextlib.contextmanager
+    def writer(self, path: str | os.PathLike) -> Iterator[BinaryIO]:
+        """A binary handle for ``path``'s content, staged until :meth:`commit`."""
+        target = Path(path)
+        fd, tmp_name = tempfile.mkstemp(prefix=f".{target.name}.", suffix=".part",
+                                        dir=target.parent)
+        self._staged.append((tmp_name, target))
+        with os.fdopen(fd, "wb", buffering=1 << 20) as handle:
+            yield handle
+            handle.flush()
+            os.fsync(handle.fileno())
+        os.chmod(tmp_name, 0o644)
+
+    def write_bytes(self, path: str | os.PathLike, data: bytes) -> None:
+        with self.writer(path) as handle:
+            handle.write(data)
+
+    def commit(self) -> None:
+        """Rename every staged file into place (each rename is atomic)."""
+        for tmp_name, target in self._staged:
+            os.replace(tmp_name, target)
+        self._staged.clear()
+
+    def discard(self) -> None:
+        """Remove the temporaries of files not committed."""
+        for tmp_name, _ in self._staged:
+            with contextlib.suppress(FileNotFoundError):
+                os.unlink(tmp_name)
+        self._staged.clear()

@@ -262,6 +262,9 @@ def min_distance(cell, positions, *, workers=2) -> tuple[float, int, int]:
     # Kepler's bound guarantees a pair within this radius; the margin covers
     # rounding. The loop only guards against a bound that failed anyway.
     radius = 1.01 * _KEPLER_FACTOR * (volume / n) ** (1.0 / 3.0)
+    on_grid = _grid_min_distance(cell, positions, radius)
+    if on_grid is not None:
+        return on_grid
     while True:
         best = _closest_pair_within(cell, positions, radius, workers)
         if best is not None:
@@ -510,6 +513,44 @@ def _count_by_gather(occupancy: np.ndarray, grid: np.ndarray, offsets: np.ndarra
         shifted += tables[2][sites[2]]
         total += occupancy[shifted]
     return total
+
+
+def _grid_min_distance(cell: np.ndarray, positions: np.ndarray, radius: float,
+                       tol: float = 1e-6) -> tuple[float, int, int] | None:
+    """:func:`min_distance` for atoms on a grid, or None (off grid, shared site,
+    no pair within ``radius``).
+
+    Offsets are tried shortest first; the first one that joins two occupied
+    sites gives the closest pair, found with one gather over the atoms per
+    offset tried instead of a neighbour search.
+    """
+    frac = _wrapped_fractional(cell, positions - positions[0])
+    located = _find_grid_sites(cell, frac, tol)
+    if located is None:
+        return None
+    grid, flat = located
+    atom_at = np.full(int(np.prod(grid)), -1, dtype=np.int64)
+    atom_at[flat] = np.arange(len(flat))
+    if np.count_nonzero(atom_at >= 0) < len(flat):
+        return None  # two atoms share a site: the general engine reports it
+    offsets = _grid_offsets(cell, grid, radius)
+    if offsets is None or len(offsets) == 0:
+        return None
+    lengths = np.linalg.norm(_times(offsets.astype(np.float64), cell / grid[:, None]), axis=1)
+    sites = np.unravel_index(flat, tuple(grid))
+    for k in np.argsort(lengths, kind="stable"):
+        shifted = np.ravel_multi_index([sites[a] + offsets[k, a] for a in range(3)],
+                                       tuple(grid), mode="wrap")
+        partner = atom_at[shifted]
+        hits = np.flatnonzero(partner >= 0)
+        if hits.size:
+            i, j = int(hits[0]), int(partner[hits[0]])
+            # the actual vector: the grid offset corrected by both atoms' residuals
+            step = offsets[k] / grid
+            diff = frac[j] - frac[i]
+            vector = _times((diff + np.rint(step - diff))[None, :], cell)[0]
+            return float(np.linalg.norm(vector)), min(i, j), max(i, j)
+    return None
 
 
 def _count_dtype(n_offsets: int):

@@ -20,7 +20,7 @@ from .audit import Audit, audit
 from .build import Plan, build_perfect, check_disk_space, resolve
 from .defects import Placement, place_defects, planned_counts
 from .errors import InputError
-from .fileio import write_bytes_atomic
+from .fileio import StagedFiles
 from .formats import WrittenFile, output_path, write_structure
 from .recipe import Recipe, load_recipe
 from .structure import Structure
@@ -115,18 +115,21 @@ def make(recipe: Recipe, out_dir: str | os.PathLike, *, force: bool = False,
     check_disk_space(built.plan, out_dir)
     note("audit")
     result_audit = audit(built.plan, built.structure, built.placements, workers=workers)
-    outputs = {}
-    for key in recipe.outputs:
-        note(key)
-        outputs[key] = write_structure(built.structure, key, output_path(out_dir, recipe.name, key),
-                                       title=recipe.name)
-    if built.placements:
-        write_bytes_atomic(Path(out_dir) / f"{recipe.name}.defects.json",
-                           _json_bytes(defect_sites(built)))
-    report = make_report(built, result_audit, outputs, out_dir,
-                         recipe_sha256 or recipe_hash(recipe))
     report_path = Path(out_dir) / f"{recipe.name}.report.json"
-    write_bytes_atomic(report_path, _json_bytes(report))
+    with StagedFiles() as staged:  # all files appear together, or none do
+        outputs = {}
+        for key in recipe.outputs:
+            note(key)
+            outputs[key] = write_structure(built.structure, key,
+                                           output_path(out_dir, recipe.name, key),
+                                           title=recipe.name, staged=staged)
+        if built.placements:
+            staged.write_bytes(Path(out_dir) / f"{recipe.name}.defects.json",
+                               _json_bytes(defect_sites(built), indent=None))
+        report = make_report(built, result_audit, outputs, out_dir,
+                             recipe_sha256 or recipe_hash(recipe))
+        staged.write_bytes(report_path, _json_bytes(report))
+        staged.commit()
     return Result(built, result_audit, report, outputs, report_path)
 
 
@@ -226,5 +229,7 @@ def versions() -> dict[str, str]:
     return out
 
 
-def _json_bytes(data: dict) -> bytes:
-    return (json.dumps(data, indent=2, allow_nan=False) + "\n").encode()
+def _json_bytes(data: dict, indent: int | None = 2) -> bytes:
+    """JSON text; compact (``indent=None``) for long id lists, which pretty-printing slows."""
+    separators = None if indent else (",", ":")
+    return (json.dumps(data, indent=indent, separators=separators, allow_nan=False) + "\n").encode()

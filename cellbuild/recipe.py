@@ -158,8 +158,9 @@ def parse_yaml(text: str, file: str | None = None) -> tuple[Any, dict[str, int]]
     """Parse YAML text safely; see :func:`load_yaml`."""
     import yaml
 
-    loader = _yaml_loader()(text)
+    loader = None
     try:
+        loader = _yaml_loader()(text)
         node = loader.get_single_node()
         if node is None:
             raise InputError("the recipe is empty", hint="see `cellbuild template fcc`",
@@ -173,10 +174,16 @@ def parse_yaml(text: str, file: str | None = None) -> tuple[Any, dict[str, int]]
         if "could not determine a constructor" in problem:
             problem = "YAML tags that construct objects are not accepted"
         raise InputError(f"YAML error: {problem}", file=file, line=line) from None
+    except yaml.reader.ReaderError as exc:
+        line = text.count("\n", 0, exc.position) + 1
+        raise InputError(f"YAML error: character {chr(exc.character)!r} is not allowed"
+                         if isinstance(exc.character, int) else "YAML error: unreadable characters",
+                         hint="a recipe is plain YAML text", file=file, line=line) from None
     except yaml.YAMLError as exc:
-        raise InputError(f"YAML error: {exc}", file=file) from None
+        raise InputError(f"YAML error: {str(exc).splitlines()[0]}", file=file) from None
     finally:
-        loader.dispose()
+        if loader is not None:
+            loader.dispose()
     return data, lines
 
 

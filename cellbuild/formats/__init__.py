@@ -12,7 +12,7 @@ import os
 from dataclasses import dataclass
 from pathlib import Path
 
-from ..fileio import HashingWriter, atomic_writer
+from ..fileio import HashingWriter, StagedFiles, atomic_writer
 from ..structure import Structure
 
 
@@ -55,10 +55,14 @@ def output_path(out_dir: str | os.PathLike, name: str, key: str) -> Path:
 
 
 def write_structure(structure: Structure, key: str, path: str | os.PathLike,
-                    title: str) -> WrittenFile:
-    """Write ``structure`` in format ``key`` to ``path`` atomically; return its hash."""
+                    title: str, staged: StagedFiles | None = None) -> WrittenFile:
+    """Write ``structure`` in format ``key`` to ``path`` atomically; return its hash.
+
+    With ``staged``, the file appears only when the caller commits the group.
+    """
     write = FORMATS[key].writer()
-    with atomic_writer(path) as handle:
+    opener = staged.writer if staged is not None else atomic_writer
+    with opener(path) as handle:
         hashing = HashingWriter(handle)
         write(structure, hashing, title)
     return WrittenFile(Path(path), hashing.sha256, hashing.bytes)

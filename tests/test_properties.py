@@ -1,0 +1,123 @@
+"""Property tests: whatever recipe comes in, `make` either builds (exit 0 with a
+passing report, or exit 1 with the failed checks named in the report) or
+refuses with exit 2 and one message, and never raises or leaves a file behind.
+"""
+from __future__ import annotations
+
+import json
+import math
+import tempfile
+from pathlib import Path
+
+import yaml
+from hypothesis import HealthCheck, given, settings
+from hypothesis import strategies as st
+from typer.testing import CliRunner
+
+from cellbuild.cli import app
+
+SETTINGS = settings(max_examples=int(__import__("os").environ.get("CELLBUILD_EXAMPLES", 60)), deadline=None,
+                    suppress_health_check=[HealthCheck.too_slow])
+
+JUNK = st.one_of(
+    st.none(), st.booleans(), st.integers(-10**12, 10**12),
+    st.floats(allow_nan=True, allow_infinity=True), st.text(max_size=12),
+    st.lists(st.integers(-3, 5), max_size=4), st.dictionaries(st.text(max_size=5), st.integers(), max_size=2),
+)
+
+ELEMENTS = st.sampled_from(["Cu", "Fe", "Si", "Al", "W", "Ni", "Po", "Xx", "cu", ""])
+LATTICES = st.sampled_from(["sc", "bcc", "fcc", "diamond", "hcp"])
+
+
+@st.composite
+def recipes(draw) -> dict:
+    """Mostly valid small recipes, with optional defects."""
+    crystal = {"element": draw(ELEMENTS), "lattice": draw(LATTICES)}
+    which = draw(st.sampled_from(["a", "density", "radius", None]))
+    if which:
+        crystal[which] = draw(st.one_of(st.floats(0.5, 8.0), JUNK))
+    size = draw(st.sampled_from([
+        {"repeat": draw(st.lists(st.integers(-1, 3), min_size=1, max_size=4))},
+        {"atoms": draw(st.integers(-5, 300))},
+        {"min_length": draw(st.floats(-1.0, 12.0))},
+    ]))
+    data = {"name": draw(st.sampled_from(["p", "p-1", "../p", "", "a/b"])),
+            "crystal": crystal, "size": size, "seed": draw(st.integers(0, 5)),
+            "outputs": draw(st.lists(st.sampled_from(["lammps-data", "cif", "xyz", "poscar", "pdb"]),
+                                     min_size=1, max_size=3))}
+    if draw(st.booleans()):
+        defects = {}
+        if draw(st.booleans()):
+            defects["vacancies"] = draw(st.sampled_from([
+                {"count": draw(st.integers(-1, 6))}, {"fraction": draw(st.floats(-0.1, 1.2))}]))
+        if draw(st.booleans()):
+            defects["substitutions"] = [{"element": draw(ELEMENTS),
+                                         "count": draw(st.integers(0, 6))}]
+        if draw(st.booleans()):
+            defects["interstitials"] = [{
+                "element": draw(ELEMENTS),
+                "site": draw(st.sampled_from(["octahedral", "tetrahedral", "cube-centre", "x"])),
+                "count": draw(st.integers(0, 3))}]
+        if draw(st.booleans()):
+            defects["min_separation"] = draw(st.floats(0.1, 9.0))
+        data["defects"] = defects
+    return data
+
+
+@st.composite
+def mutated(draw) -> dict:
+    """A valid recipe with one value replaced by junk or one key renamed."""
+    data = {"name": "m", "crystal": {"element": "Cu", "lattice": "fcc", "a": 3.6},
+            "size": {"repeat": [2, 2, 2]}, "seed": 1, "outputs": ["xyz"],
+            "defects": {"vacancies": {"count": 1}}}
+    section = draw(st.sampled_from(["name", "crystal", "size", "seed", "outputs", "defects"]))
+    if isinstance(data[section], dict) and draw(st.booleans()):
+        key = draw(st.sampled_from(sorted(data[section])))
+        if draw(st.booleans()):
+            data[section][key] = draw(JUNK)
+        else:
+            data[section][key + draw(st.text(min_size=1, max_size=3))] = data[section].pop(key)
+    else:
+        data[section] = draw(JUNK)
+    return data
+
+
+def _check_outcome(text: str) -> None:
+    with tempfile.TemporaryDirectory() as tmp:
+        recipe = Path(tmp) / "r.yaml"
+        recipe.write_text(text)
+        out = Path(tmp) / "out"
+        result = CliRunner().invoke(app, ["make", str(recipe), "--out", str(out)])
+        # never an exception other than the exit itself
+        assert result.exception is None or isinstance(result.exception, SystemExit), result.output
+        assert result.exit_code in (0, 1, 2), result.output
+        if result.exit_code == 2:
+            message = result.output.strip()
+            assert message.startswith("error: ") and "\n" not in message
+            assert not out.exists() or not any(out.iterdir())
+            return
+        reports = list(out.glob("*.report.json"))
+        assert len(reports) == 1
+        report = json.loads(reports[0].read_text())
+        assert report["passed"] == (result.exit_code == 0)
+        if result.exit_code == 1:
+            assert any(not c["passed"] for c in report["checks"])
+        assert not list(out.glob("*.part"))
+
+
+@SETTINGS
+@given(recipes())
+def test_generated_recipes_build_or_fail_cleanly(data):
+    _check_outcome(yaml.safe_dump(data))
+
+
+@SETTINGS
+@given(mutated())
+def test_mutated_recipes_build_or_fail_cleanly(data):
+    _check_outcome(yaml.safe_dump(data))
+
+
+@settings(max_examples=80, deadline=None)
+@given(st.text(max_size=200))
+def test_random_text_never_raises(text):
+    _check_outcome(text)
