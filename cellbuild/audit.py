@@ -128,8 +128,9 @@ def audit(plan: Plan, structure: Structure, placements: list[Placement],
         checks.append(Check("density", ok,
                             f"{density:.6f} g/cm^3 from atoms and volume; asked {recipe.crystal.density}"))
 
+    sites = neighbours.locate_grid(structure.cell, structure.positions)  # shared by two checks
     counted = neighbours.coordination_counts(structure.cell, structure.positions, cutoff,
-                                             workers=workers)
+                                             workers=workers, sites=sites)
     expected = expected_coordination(structure, lattice, plan.repeat)
     mismatched = int(np.count_nonzero(counted != expected))
     values["coordination"] = _coordination_values(structure, counted, cutoff, mismatched)
@@ -138,7 +139,8 @@ def audit(plan: Plan, structure: Structure, placements: list[Placement],
         f"{mismatched} of {structure.n_atoms} atoms have a neighbour count (within "
         f"{cutoff:.4f} Angstrom, from coordinates) that differs from the lattice topology"))
 
-    checks.append(_distance_check(recipe, structure, geometry.nearest * a, values, workers))
+    checks.append(_distance_check(recipe, structure, geometry.nearest * a, values, workers,
+                                  sites))
     return Audit(tuple(checks), values)
 
 
@@ -275,9 +277,10 @@ def histogram(counts: np.ndarray) -> dict[str, int]:
 
 
 def _distance_check(recipe, structure: Structure, d_nn: float, values: dict,
-                    workers: int) -> Check:
+                    workers: int, sites) -> Check:
     threshold = recipe.checks.min_distance or 0.5 * d_nn
-    d, i, j = neighbours.min_distance(structure.cell, structure.positions, workers=workers)
+    d, i, j = neighbours.min_distance(structure.cell, structure.positions, workers=workers,
+                                      sites=sites)
     if d >= threshold:  # the closest pair is far enough: no pair can be closer
         pi = pj = np.zeros(0, np.int64)
         pd = np.zeros(0)

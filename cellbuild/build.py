@@ -189,17 +189,23 @@ def replicate(lattice: str, a: float, repeat: tuple[int, int, int],
 
     Atoms come out in site-id order; all carry species ``code`` (``symbols[code]``).
     """
-    frac, _, _ = site_table(lattice)
-    n_basis = LATTICES[lattice].n_basis
-    n1, n2, n3 = repeat
+    n_grid = len(site_table(lattice)[0])
     basis = LATTICES[lattice].basis_array()
-    # integer cell corners, in cell-number order: (i*n2 + j)*n3 + k
-    corners = np.stack(np.meshgrid(np.arange(n1), np.arange(n2), np.arange(n3), indexing="ij"),
-                       axis=-1).reshape(-1, 1, 3)
-    positions = ((corners + basis[None, :, :]) * a).reshape(-1, 3)
-    n = positions.shape[0]
-    cell_ids = np.repeat(np.arange(n // n_basis, dtype=np.int64), n_basis)
-    site = cell_ids * len(frac) + np.tile(np.arange(n_basis, dtype=np.int64), n // n_basis)
+    n_basis = len(basis)
+    n1, n2, n3 = repeat
+    # Fill each coordinate column in place by broadcasting (cell index along
+    # one axis + basis offset): no per-atom temporaries beyond the output.
+    positions = np.empty((n1, n2, n3, n_basis, 3), dtype=np.float64)
+    for axis, n in enumerate(repeat):
+        shape = [1, 1, 1, 1]
+        shape[axis] = n
+        corner = np.arange(n, dtype=np.float64).reshape(shape)
+        np.multiply(corner + basis[:, axis], a, out=positions[..., axis])
+    positions = positions.reshape(-1, 3)
+    n_cells = n1 * n2 * n3
+    site = (np.arange(n_cells, dtype=np.int64)[:, None] * n_grid
+            + np.arange(n_basis, dtype=np.int64)[None, :]).ravel()
+    n = n_cells * n_basis
     return Structure(
         cell=np.diag([n1 * a, n2 * a, n3 * a]).astype(np.float64),
         positions=positions,

@@ -182,7 +182,7 @@ class _Picker:
         self.rng = rng
         self.lattice = plan.recipe.crystal.lattice
         self.frac, self.kinds, self.starts = site_table(self.lattice)
-        self.taken: dict[str, np.ndarray] = {}
+        self.taken: dict[str, np.ndarray] = {}  # per target: mask over its pool
         self.separation = plan.recipe.defects.min_separation
         self.accepted = np.empty((0, 3))
 
@@ -194,24 +194,22 @@ class _Picker:
         cells = np.arange(self.plan.n_cells, dtype=np.int64)
         return (cells[:, None] * n_grid + local[None, :]).ravel()
 
-    def _free(self, on: str) -> np.ndarray:
-        pool = self._pool(on)
-        if on in self.taken:
-            pool = pool[~np.isin(pool, self.taken[on], assume_unique=True)]
-        return pool
-
     def pick(self, req: Request, n: int) -> np.ndarray:
+        """``n`` distinct free sites of ``req.on``, drawn with the shared generator."""
         if n == 0:
             return np.empty(0, dtype=np.int64)
-        free = self._free(req.on)
+        pool = self._pool(req.on)
+        taken = self.taken.setdefault(req.on, np.zeros(pool.size, dtype=bool))
+        free = np.flatnonzero(~taken)  # positions in the pool
         if self.separation is None:
             chosen = free[self.rng.choice(free.size, size=n, replace=False)]
         else:
-            chosen = self._pick_separated(req, free, n)
-        self.taken[req.on] = np.concatenate([self.taken.get(req.on, np.empty(0, np.int64)), chosen])
-        return chosen
+            chosen = self._pick_separated(req, pool, free, n)
+        taken[chosen] = True
+        return pool[chosen]
 
-    def _pick_separated(self, req: Request, free: np.ndarray, n: int) -> np.ndarray:
+    def _pick_separated(self, req: Request, pool: np.ndarray, free: np.ndarray,
+                        n: int) -> np.ndarray:
         """Random sequential placement with a periodic KD-tree, in batches.
 
         Candidates come in a seeded random order. In each batch, a candidate is
@@ -234,7 +232,7 @@ class _Picker:
             batch = np.concatenate([deferred, order[cursor:cursor + take]])
             cursor += take
             pos = site_positions(self.lattice, self.plan.lattice_constant, self.plan.repeat,
-                                 batch) % box
+                                 pool[batch]) % box
             ok = np.ones(batch.size, dtype=bool)
             if self.accepted.size:
                 d, _ = cKDTree(self.accepted, boxsize=box).query(pos, distance_upper_bound=r)

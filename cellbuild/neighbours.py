@@ -164,15 +164,45 @@ def _wrapped_fractional(cell: np.ndarray, positions: np.ndarray) -> np.ndarray:
 # Public API
 # --------------------------------------------------------------------------
 
-def coordination_counts(cell, positions, cutoff, *, workers=2) -> np.ndarray:
+@dataclass(frozen=True, eq=False)
+class GridSites:
+    """Where atoms sit on a regular grid of their cell (see :func:`locate_grid`).
+
+    Attributes:
+        grid: (3,) int64 divisions (M1, M2, M3) of the cell.
+        flat: (N,) int64 C-order index of each atom's grid site.
+        frac: (N, 3) wrapped fractional coordinates relative to atom 0.
+    """
+
+    grid: np.ndarray
+    flat: np.ndarray
+    frac: np.ndarray
+
+
+def locate_grid(cell, positions, tol=1e-6) -> GridSites | None:
+    """The smallest regular grid through atom 0 that holds every atom within
+    ``tol`` Angstrom, or None. Computing it once lets :func:`coordination_counts`
+    and :func:`min_distance` share the work on large structures."""
+    cell = _checked_cell(cell)
+    positions = _checked_positions(positions)
+    if len(positions) == 0:
+        return None
+    frac = _wrapped_fractional(cell, positions - positions[0])
+    located = _find_grid_sites(cell, frac, tol)
+    return None if located is None else GridSites(located[0], located[1], frac)
+
+
+def coordination_counts(cell, positions, cutoff, *, workers=2,
+                        sites: GridSites | None = None) -> np.ndarray:
     """Neighbours of each atom closer than ``cutoff`` (Angstrom), (N,) int32.
 
     Neighbours are other atoms and periodic images, including images of the
     atom itself. Uses the grid fast path when every atom sits on a regular grid
     of the cell (within 1e-6 A) and no two atoms share a site, otherwise the
-    general cell-list engine with ``workers`` threads.
+    general cell-list engine with ``workers`` threads. ``sites`` passes a grid
+    already located for these positions.
     """
-    counts = grid_counts(cell, positions, cutoff)
+    counts = grid_counts(cell, positions, cutoff, sites=sites)
     if counts is None:
         counts = general_counts(cell, positions, cutoff, workers=workers)
     return counts
@@ -200,7 +230,8 @@ def general_counts(cell, positions, cutoff, *, workers=2) -> np.ndarray:
     return counts
 
 
-def grid_counts(cell, positions, cutoff, grid=None, tol=1e-6) -> np.ndarray | None:
+def grid_counts(cell, positions, cutoff, grid=None, tol=1e-6,
+                sites: GridSites | None = None) -> np.ndarray | None:
     """Neighbour counts for atoms on the sites of a regular grid, or None.
 
     Args:
@@ -226,10 +257,13 @@ def grid_counts(cell, positions, cutoff, grid=None, tol=1e-6) -> np.ndarray | No
     if len(positions) == 0:
         return np.zeros(0, dtype=np.int32)
     # Relative to the first atom: a rigidly shifted crystal qualifies too.
-    frac = _wrapped_fractional(cell, positions - positions[0])
-    if grid is None:
+    if sites is not None:
+        located = (sites.grid, sites.flat)
+    elif grid is None:
+        frac = _wrapped_fractional(cell, positions - positions[0])
         located = _find_grid_sites(cell, frac, tol)
     else:
+        frac = _wrapped_fractional(cell, positions - positions[0])
         grid = np.asarray(grid, dtype=np.int64).reshape(3)
         if np.any(grid < 1):
             raise ValueError(f"grid divisions must be >= 1, got {tuple(grid)}")
@@ -247,7 +281,8 @@ def grid_counts(cell, positions, cutoff, grid=None, tol=1e-6) -> np.ndarray | No
     return _count_occupied_offsets(occupancy.astype(np.uint8), grid, offsets, flat)
 
 
-def min_distance(cell, positions, *, workers=2) -> tuple[float, int, int]:
+def min_distance(cell, positions, *, workers=2,
+                 sites: GridSites | None = None) -> tuple[float, int, int]:
     """Shortest periodic distance (Angstrom) and one pair (i, j), i <= j, at it.
 
     The pair may be an atom and an image of another atom, or of itself
@@ -262,7 +297,7 @@ def min_distance(cell, positions, *, workers=2) -> tuple[float, int, int]:
     # Kepler's bound guarantees a pair within this radius; the margin covers
     # rounding. The loop only guards against a bound that failed anyway.
     radius = 1.01 * _KEPLER_FACTOR * (volume / n) ** (1.0 / 3.0)
-    on_grid = _grid_min_distance(cell, positions, radius)
+    on_grid = _grid_min_distance(cell, positions, radius, sites=sites)
     if on_grid is not None:
         return on_grid
     while True:
@@ -516,7 +551,8 @@ def _count_by_gather(occupancy: np.ndarray, grid: np.ndarray, offsets: np.ndarra
 
 
 def _grid_min_distance(cell: np.ndarray, positions: np.ndarray, radius: float,
-                       tol: float = 1e-6) -> tuple[float, int, int] | None:
+                       tol: float = 1e-6, sites: GridSites | None = None
+                       ) -> tuple[float, int, int] | None:
     """:func:`min_distance` for atoms on a grid, or None (off grid, shared site,
     no pair within ``radius``).
 
@@ -524,11 +560,10 @@ def _grid_min_distance(cell: np.ndarray, positions: np.ndarray, radius: float,
     sites gives the closest pair, found with one gather over the atoms per
     offset tried instead of a neighbour search.
     """
-    frac = _wrapped_fractional(cell, positions - positions[0])
-    located = _find_grid_sites(cell, frac, tol)
-    if located is None:
+    sites = sites or locate_grid(cell, positions, tol)
+    if sites is None:
         return None
-    grid, flat = located
+    grid, flat, frac = sites.grid, sites.flat, sites.frac
     atom_at = np.full(int(np.prod(grid)), -1, dtype=np.int64)
     atom_at[flat] = np.arange(len(flat))
     if np.count_nonzero(atom_at >= 0) < len(flat):
@@ -537,10 +572,12 @@ def _grid_min_distance(cell: np.ndarray, positions: np.ndarray, radius: float,
     if offsets is None or len(offsets) == 0:
         return None
     lengths = np.linalg.norm(_times(offsets.astype(np.float64), cell / grid[:, None]), axis=1)
-    sites = np.unravel_index(flat, tuple(grid))
+    axis_sites = np.unravel_index(flat, tuple(grid))
+    strides = np.array([grid[1] * grid[2], grid[2], 1], dtype=np.int64)
     for k in np.argsort(lengths, kind="stable"):
-        shifted = np.ravel_multi_index([sites[a] + offsets[k, a] for a in range(3)],
-                                       tuple(grid), mode="wrap")
+        # flat index of site + offset (mod grid) as a sum of per-axis tables
+        shifted = sum(((np.arange(grid[a]) + offsets[k, a]) % grid[a] * strides[a])[axis_sites[a]]
+                      for a in range(3))
         partner = atom_at[shifted]
         hits = np.flatnonzero(partner >= 0)
         if hits.size:
