@@ -55,15 +55,16 @@ def make(
     strict: bool = typer.Option(False, "--strict", help="Treat implausible values as errors."),
 ) -> None:
     """Build each recipe, audit it and write its files and NAME.report.json."""
+    from collections import Counter
+
     from .pipeline import check_outputs_free, make as make_one
     from .build import resolve
     from .defects import planned_counts
-    from .recipe import load_recipe
 
     try:
-        loaded = [load_recipe(p) for p in recipes]
+        loaded = _load_points(recipes)
         names = [r.name for r in loaded]
-        dup = next((n for n in names if names.count(n) > 1), None)
+        dup = next((n for n, k in Counter(names).items() if k > 1), None)  # linear: sweeps are long
         if dup:
             raise InputError("is used by more than one recipe", key="name", value=dup,
                              hint="give each recipe its own name")
@@ -85,6 +86,13 @@ def make(
         if not result.passed:
             code = EXIT_FAILED_CHECK
     raise typer.Exit(code)
+
+
+def _load_points(paths: List[Path]) -> list:
+    """Every structure the recipe files stand for: one per sweep point (validated)."""
+    from .sweep import expand_file
+
+    return [point.recipe for path in paths for point in expand_file(path)]
 
 
 def _progress(name: str):
@@ -109,6 +117,8 @@ def _summary(result) -> None:
     typer.echo(f"{r['name']}: {r['n_atoms']:,} atoms, {r['lattice']} {r['element']} "
                f"a = {r['lattice_constant']:.5f} A, box {box} A; "
                f"{passed}/{len(r['checks'])} checks passed ({verdict})")
+    for w in r.get("warnings", []):
+        typer.echo(f"  warning: {w}")
     for c in r["checks"]:
         if not c["passed"]:
             typer.echo(f"  failed {c['name']}: {c['detail']}")
@@ -166,13 +176,191 @@ def template(lattice: str = typer.Argument(..., help="sc, bcc, fcc or diamond.")
         raise _fail(exc) from None
 
 
+@app.command()
+def batch(
+    source: Path = typer.Argument(..., metavar="DIR",
+                                  help="Folder of recipes, searched recursively for *.yaml and *.yml."),
+    out: Path = typer.Option(..., "--out", "-o", help="Library folder; gets OUT/manifest.json."),
+    workers: Optional[int] = typer.Option(None, "--workers", "-j", min=1,
+                                          help="Worker processes (default: all cores)."),
+    junit: Optional[Path] = typer.Option(None, "--junit", help="Also write a JUnit XML report."),
+) -> None:
+    """Build every recipe under DIR (every sweep point) in parallel into OUT.
+
+    Outputs mirror the recipe folders (DIR/a/b.yaml writes into OUT/a/), and
+    OUT/manifest.json records every structure, its recipe and the sha256 of
+    every file. Building into an existing OUT is a rebuild of the library: the
+    files it writes are replaced, files the previous manifest listed that are
+    no longer produced are removed, other files are left alone (`verify`
+    reports leftover outputs as extra). A bad recipe is recorded as an error
+    and the others are still built. Exit code: 0 all passed, 1 a check
+    failed, 2 a recipe could not be built.
+    """
+    from .batch import ProgressBar, build_library, outcome_line, write_junit
+
+    bar = ProgressBar() if sys.stderr.isatty() else None
+    on_done = bar.update if bar else (lambda o: typer.echo(outcome_line(o)))
+    try:
+        result = build_library(source, out, workers=workers, on_done=on_done,
+                               on_planned=bar.planned if bar else None)
+        if junit is not None:
+            write_junit(junit, result.outcomes)
+    except InputError as exc:
+        raise _fail(exc) from None
+    except OSError as exc:
+        raise _fail(_os_error(exc)) from None
+    finally:
+        if bar:
+            bar.close()
+    _batch_summary(result, show_problems=bar is not None)
+    raise typer.Exit(result.exit_code)
+
+
+def _batch_summary(result, show_problems: bool) -> None:
+    """Counts, where the manifest went and (after a progress bar) the problem lines."""
+    from .batch import outcome_line
+
+    statuses = [o.status for o in result.outcomes]
+    if show_problems:
+        for o in result.outcomes:
+            if o.status != "passed":
+                typer.echo(outcome_line(o))
+    if result.removed:
+        typer.echo(f"removed {len(result.removed)} file(s) the previous manifest listed "
+                   "and this build no longer writes")
+    typer.echo(f"{len(statuses)} structure(s): {statuses.count('passed')} passed, "
+               f"{statuses.count('failed')} failed checks, {statuses.count('error')} "
+               f"could not be built; manifest {result.manifest_path}")
+
+
+@app.command()
+def verify(
+    manifest: Path = typer.Argument(..., help="OUT/manifest.json written by `cellbuild batch`."),
+    workers: Optional[int] = typer.Option(None, "--workers", "-j", min=1,
+                                          help="Worker processes (default: all cores)."),
+) -> None:
+    """Rebuild every manifest entry in a temporary folder and compare bytes.
+
+    Prints one line per difference (recipe changed or missing, output changed,
+    changed on disk, missing, extra, entries no longer produced or new).
+    Exit code: 0 everything matches, 1 something differs, 2 unreadable manifest.
+    """
+    from .batch import ProgressBar
+    from .verify import verify as verify_manifest
+
+    bar = ProgressBar(label="rebuilding") if sys.stderr.isatty() else None
+    try:
+        result = verify_manifest(manifest, workers=workers,
+                                 on_planned=bar.planned if bar else None,
+                                 on_done=bar.update if bar else None)
+    except InputError as exc:
+        raise _fail(exc) from None
+    except OSError as exc:
+        raise _fail(_os_error(exc)) from None
+    finally:
+        if bar:
+            bar.close()
+    for difference in result.differences:
+        typer.echo(difference.line())
+    if result.ok:
+        typer.echo(f"verified: all {result.n_entries} structure(s) match the manifest")
+        raise typer.Exit(EXIT_OK)
+    typer.echo(f"{len(result.differences)} difference(s) against the manifest "
+               f"({result.n_entries} structure(s) listed)")
+    raise typer.Exit(EXIT_FAILED_CHECK)
+
+
+@app.command("inspect")
+def inspect_files(
+    files: List[Path] = typer.Argument(..., metavar="FILE...",
+                                       help="CIF, (extended) XYZ, LAMMPS data or POSCAR files."),
+    types: Optional[str] = typer.Option(None, "--types",
+                                        help="Element of each LAMMPS atom type, e.g. Cu,Ni."),
+    expect: Optional[str] = typer.Option(None, "--expect",
+                                         help="Fail unless the file matches sc, bcc, fcc or diamond."),
+    cutoff: Optional[float] = typer.Option(None, "--cutoff",
+                                           help="Neighbour cutoff in Angstrom (default: automatic)."),
+    potential_cutoff: Optional[float] = typer.Option(
+        None, "--potential-cutoff", help="Fail unless every box width is at least 2x this (A)."),
+    as_json: bool = typer.Option(False, "--json", help="Print JSON (a list for several files)."),
+    plot: Optional[Path] = typer.Option(None, "--plot", help="Write g(r) and coordination PNG "
+                                        "(several files: PLOT-STEM-<file stem>.png)."),
+) -> None:
+    """Check structure files before an expensive run: counts, neighbours, lattice, box.
+
+    Prints atom count, composition, cell, density, closest pairs, neighbour
+    shells, coordination per species, the cubic lattice matched, inferred point
+    defects and the space group. Exit code: 0 all checks passed, 1 a check
+    failed, 2 a file (or an option) could not be used.
+    """
+    from .inspection import describe, inspect_file, plot_paths
+
+    try:
+        symbols = _inspect_options(types, expect, cutoff, potential_cutoff, plot)
+    except InputError as exc:
+        raise _fail(exc) from None
+    results, code = [], EXIT_OK
+    for path, png in zip(files, plot_paths(plot, files)):
+        try:
+            result = inspect_file(path, types=symbols, cutoff=cutoff, expect=expect,
+                                  potential_cutoff=potential_cutoff, plot=png)
+        except (InputError, OSError) as exc:
+            if isinstance(exc, OSError):
+                exc = InputError(f"cannot write the plot ({exc.strerror or exc})",
+                                 key="--plot", value=str(png))
+            _fail(exc)  # prints the sentence; the other files are still inspected
+            results.append({"file": str(path), "error": str(exc), "passed": False})
+            code = EXIT_BAD_INPUT
+            continue
+        results.append(result)
+        if not result["passed"] and code == EXIT_OK:
+            code = EXIT_FAILED_CHECK
+        if not as_json:
+            typer.echo(describe(result))
+    if as_json and (len(files) > 1 or code != EXIT_BAD_INPUT):
+        typer.echo(json.dumps(results if len(files) > 1 else results[0], indent=2))
+    raise typer.Exit(code)
+
+
+def _inspect_options(types, expect, cutoff, potential_cutoff, plot) -> Optional[list]:
+    """Validate the options of `inspect`; the --types symbols as a list (or None)."""
+    import math
+
+    from .lattices import LATTICES
+
+    for key, value in (("--cutoff", cutoff), ("--potential-cutoff", potential_cutoff)):
+        if value is not None and not (math.isfinite(value) and value > 0):
+            raise InputError("must be a positive distance in Angstrom", key=key, value=value)
+    if expect is not None and expect not in LATTICES:
+        raise InputError("is not a lattice cellbuild knows", key="--expect", value=expect,
+                         hint=f"use one of {', '.join(LATTICES)}")
+    if plot is not None and not Path(plot).parent.is_dir():
+        raise InputError("is in a folder that does not exist", key="--plot", value=str(plot))
+    if types is None:
+        return None
+    from ase.data import chemical_symbols
+
+    symbols = [s.strip() for s in types.split(",")]
+    bad = next((s for s in symbols if s not in chemical_symbols[1:]), None)
+    if bad is not None:
+        raise InputError(f"names {bad!r}, which is not a chemical symbol", key="--types",
+                         value=types, hint="give one element per LAMMPS type, e.g. Cu,Ni")
+    return symbols
+
+
 def main() -> None:
-    """Console-script entry point."""
+    """Console-script entry point: no traceback reaches the user without --debug."""
     try:
         app()
     except KeyboardInterrupt:
-        typer.echo("interrupted", err=True)
+        typer.echo("interrupted; no partial files were left", err=True)
         sys.exit(130)
+    except Exception as exc:  # a bug, not bad input: still one sentence, no traceback
+        if _State.debug:
+            raise
+        typer.echo(f"error: unexpected {type(exc).__name__}: {exc}; rerun with --debug and "
+                   "report it", err=True)
+        sys.exit(EXIT_BAD_INPUT)
 
 
 if __name__ == "__main__":

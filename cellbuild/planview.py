@@ -5,7 +5,6 @@ from pathlib import Path
 
 from .build import Plan, resolve
 from .defects import planned_counts
-from .recipe import load_recipe
 
 
 def describe(plan: Plan) -> dict:
@@ -41,6 +40,16 @@ def describe(plan: Plan) -> dict:
 
 
 def describe_plans(path: str | Path, *, strict: bool = False) -> list[dict]:
-    """Plans for the recipe file at ``path`` (one per sweep point, once sweeps exist)."""
-    recipe = load_recipe(path)
-    return [describe(resolve(recipe, strict=strict))]
+    """Plans for the recipe file at ``path``: one per sweep point, in sweep order.
+
+    A sweep point's plan also holds ``sweep``, the values of that point.
+    """
+    from .sweep import expand_file
+
+    plans = []
+    for point in expand_file(path):
+        plan = describe(resolve(point.recipe, strict=strict))
+        if point.values:
+            plan["sweep"] = point.values
+        plans.append(plan)
+    return plans

@@ -1,0 +1,128 @@
+"""Throughput of `cellbuild batch`: structures per second, 1 and 2 workers.
+
+Writes generated recipe files to a temporary folder (one file per structure,
+so recipe discovery and expansion are part of the measurement) and times
+:func:`cellbuild.batch.build_library`, the code behind `cellbuild batch`,
+from the first file read to the manifest written, process-pool start-up
+included. Two sizes:
+
+* small: fcc Cu 3 x 3 x 3 (108 sites) with one vacancy -> 107 atoms;
+* large: fcc Cu 14 x 14 x 14 (10,976 sites) with one vacancy -> 10,975 atoms.
+
+Each point is the median of ``--repeats`` runs into a fresh output folder.
+Besides wall-clock rates the table shows structures per CPU-second (this
+process and its workers, start-up included): on a shared machine other work
+slows the wall clock of the 2-worker rows, not the CPU cost per structure.
+Target: at least 50 small structures per second per core.
+
+    python benchmarks/bench_batch.py                       # all formats (default outputs)
+    python benchmarks/bench_batch.py --outputs lammps-data # one format per structure
+    python benchmarks/bench_batch.py --profile             # where a small structure's time goes
+"""
+from __future__ import annotations
+
+import argparse
+import os
+import resource
+import statistics
+import tempfile
+import time
+from pathlib import Path
+
+SIZES = {"small": 3, "large": 14}  # conventional fcc cells per axis
+
+
+def write_recipes(folder: Path, kind: str, count: int, outputs: list[str]) -> None:
+    """``count`` recipe files of one size, differing by seed, in two subfolders."""
+    n = SIZES[kind]
+    for i in range(count):
+        sub = folder / kind / f"group{i % 2}"
+        sub.mkdir(parents=True, exist_ok=True)
+        (sub / f"{kind}-{i:05d}.yaml").write_text(
+            f"name: {kind}-{i:05d}\n"
+            f"crystal: {{element: Cu, lattice: fcc, a: 3.615}}\n"
+            f"size: {{repeat: [{n}, {n}, {n}]}}\n"
+            f"seed: {i + 1}\n"
+            f"outputs: [{', '.join(outputs)}]\n"
+            f"defects: {{vacancies: {{count: 1}}}}\n")
+
+
+def cpu_seconds() -> float:
+    """CPU time (user + system) of this process and of its finished worker processes."""
+    me, children = (resource.getrusage(who) for who in
+                    (resource.RUSAGE_SELF, resource.RUSAGE_CHILDREN))
+    return me.ru_utime + me.ru_stime + children.ru_utime + children.ru_stime
+
+
+def time_batch(source: Path, workers: int, repeats: int) -> tuple[float, float, int, int]:
+    """Median wall-clock and CPU seconds of a full build (worker start-up included),
+    the structure count and the atoms per structure."""
+    from cellbuild.batch import build_library
+
+    walls, cpus = [], []
+    for _ in range(repeats):
+        with tempfile.TemporaryDirectory(prefix="bench-out-") as out:
+            cpu, start = cpu_seconds(), time.perf_counter()
+            result = build_library(source, out, workers=workers)
+            walls.append(time.perf_counter() - start)
+            cpus.append(cpu_seconds() - cpu)
+            bad = [o for o in result.outcomes if o.status != "passed"]
+            if bad:
+                raise SystemExit(f"benchmark structure not built: {bad[0].error or bad[0].name}")
+    atoms = result.outcomes[0].n_atoms
+    return statistics.median(walls), statistics.median(cpus), len(result.outcomes), atoms
+
+
+def profile_one(source: Path) -> None:
+    """Top functions (cumulative time) for building the small recipes in one process."""
+    import cProfile
+    import pstats
+
+    from cellbuild.batch import build_library
+
+    with tempfile.TemporaryDirectory(prefix="bench-prof-") as out:
+        profiler = cProfile.Profile()
+        profiler.enable()
+        build_library(source, out, workers=1)
+        profiler.disable()
+    pstats.Stats(profiler).sort_stats("cumulative").print_stats(30)
+
+
+def main() -> None:
+    parser = argparse.ArgumentParser(description=__doc__.split("\n")[0])
+    parser.add_argument("--small", type=int, default=200, help="number of small recipes")
+    parser.add_argument("--large", type=int, default=24, help="number of large recipes")
+    parser.add_argument("--repeats", type=int, default=3, help="runs per point (median)")
+    parser.add_argument("--outputs", default="lammps-data,cif,xyz,poscar",
+                        help="comma-separated output formats of every recipe")
+    parser.add_argument("--profile", action="store_true", help="profile the small recipes")
+    args = parser.parse_args()
+    outputs = args.outputs.split(",")
+
+    import cellbuild.pipeline  # noqa: F401 -- import cost is not part of the measurement
+    from cellbuild.batch import default_workers
+
+    with tempfile.TemporaryDirectory(prefix="bench-recipes-") as tmp:
+        tmp = Path(tmp)
+        write_recipes(tmp, "small", args.small, outputs)
+        write_recipes(tmp, "large", args.large, outputs)
+        if args.profile:
+            profile_one(tmp / "small")
+            return
+        print(f"outputs per structure: {', '.join(outputs)} + report (+ defects sidecar)")
+        print(f"cores available: {default_workers()}; load average before: "
+              f"{os.getloadavg()[0]:.2f} (other work on the machine skews the 2-worker rows)")
+        print(f"{'recipe':>8} {'atoms':>7} {'workers':>7} {'structures':>10} "
+              f"{'wall s':>7} {'struct/s':>9} {'per core':>9} {'CPU s':>7} {'per CPU s':>10}")
+        for kind, count in (("small", args.small), ("large", args.large)):
+            for workers in (1, 2):
+                wall, cpu, n, atoms = time_batch(tmp / kind, workers, args.repeats)
+                rate = n / wall
+                print(f"{kind:>8} {atoms:>7,} {workers:>7} {n:>10} {wall:>7.2f} "
+                      f"{rate:>9.1f} {rate / workers:>9.1f} {cpu:>7.2f} {n / cpu:>10.1f}",
+                      flush=True)
+        print(f"load average after: {os.getloadavg()[0]:.2f}")
+
+
+if __name__ == "__main__":
+    main()
