@@ -9,6 +9,7 @@ The audit passes only when they agree atom by atom, among other checks.
 """
 from __future__ import annotations
 
+import copy
 import math
 from dataclasses import dataclass, field
 from functools import lru_cache
@@ -108,9 +109,9 @@ def audit(plan: Plan, structure: Structure, placements: list[Placement],
     checks: list[Check] = []
     values: dict = {}
 
-    unit = _unit_cell_facts(lattice, a, recipe.crystal.element, workers)
-    values.update(unit.pop("values"))
-    checks += unit.pop("checks")
+    unit_checks, unit_values = _unit_cell_facts(lattice, a, recipe.crystal.element)
+    values.update(copy.deepcopy(unit_values))
+    checks += unit_checks
     checks.append(_atoms_per_cell_check(plan, structure, placements))
 
     composition = structure.composition()
@@ -144,9 +145,15 @@ def audit(plan: Plan, structure: Structure, placements: list[Placement],
     return Audit(tuple(checks), values)
 
 
-def _unit_cell_facts(lattice: str, a: float, element: str, workers: int) -> dict:
+@lru_cache(maxsize=64)
+def _unit_cell_facts(lattice: str, a: float, element: str) -> tuple[tuple[Check, ...], dict]:
     """Atoms per cell, nearest-neighbour distance, ideal coordination, packing and
-    space group, measured on one perfect conventional cell built by the same code."""
+    space group, measured on one perfect conventional cell built by the same code.
+
+    Cached: a library of many small structures of one crystal measures it once
+    per process (spglib dominates the cost of a 100-atom audit). Callers copy
+    the returned dict before changing it.
+    """
     cell = replicate(lattice, a, (1, 1, 1), symbols=(element,))
     geometry = shells(lattice)
     d_nn, _, _ = neighbours.min_distance(cell.cell, cell.positions, workers=1)
@@ -176,7 +183,7 @@ def _unit_cell_facts(lattice: str, a: float, element: str, workers: int) -> dict
         "packing_fraction_ideal": packing_fraction(lattice),
         "space_group": {"symbol": symbol, "number": number},
     }
-    return {"checks": checks, "values": values}
+    return tuple(checks), values
 
 
 def spacegroup(structure: Structure, symprec: float = 1e-5) -> tuple[str, int]:

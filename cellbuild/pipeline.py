@@ -10,6 +10,7 @@ import hashlib
 import json
 import os
 from dataclasses import dataclass
+from functools import lru_cache
 from pathlib import Path
 from typing import Callable
 
@@ -218,15 +219,21 @@ def defect_sites(built: Built) -> dict:
 
 def versions() -> dict[str, str]:
     """Versions of cellbuild and of the libraries that shape the outputs."""
+    return dict(_versions())
+
+
+@lru_cache(maxsize=1)
+def _versions() -> tuple[tuple[str, str], ...]:
+    # reading package metadata costs milliseconds; versions do not change in a process
     from importlib.metadata import PackageNotFoundError, version
 
-    out = {"cellbuild": __version__}
+    out = [("cellbuild", __version__)]
     for package in ("numpy", "scipy", "ase", "spglib"):
         try:
-            out[package] = version(package)
+            out.append((package, version(package)))
         except PackageNotFoundError:
-            out[package] = "missing"
-    return out
+            out.append((package, "missing"))
+    return tuple(out)
 
 
 def _json_bytes(data: dict, indent: int | None = 2) -> bytes:

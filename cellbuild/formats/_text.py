@@ -549,6 +549,10 @@ def write_rows(handle, row: Row, n: int,
     ``columns(part)`` gives the field columns for the rows in slice ``part``.
     Memory stays at about two blocks, whatever ``n``.
     """
+    if n <= CHUNK_ROWS:  # one block: a thread would only add start-up cost
+        if n:
+            handle.write(row.render(columns(slice(0, n))).reshape(-1))
+        return
     # One writer thread: the next block is formatted while the previous one is
     # hashed and written (numpy, hashlib and file writes release the GIL).
     # Writes stay in order; at most two blocks exist at once.
