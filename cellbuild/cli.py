@@ -59,7 +59,7 @@ def make(
 
     from .pipeline import check_outputs_free, make as make_one
     from .build import resolve
-    from .defects import planned_counts
+    from .defect_plan import planned_counts
 
     try:
         loaded = _load_points(recipes)

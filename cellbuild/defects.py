@@ -8,15 +8,14 @@ stable, and ``Generator.permutation`` has been stable across releases).
 """
 from __future__ import annotations
 
-import math
 from dataclasses import dataclass
 
 import numpy as np
 
 from .build import Plan, site_positions
+from .defect_plan import Request, asked, planned_counts
 from .errors import InputError
 from .lattices import LATTICES, site_table
-from .recipe import Amount, Recipe
 from .structure import Structure
 
 
@@ -45,81 +44,6 @@ class Placement:
         return int(self.site_ids.size)
 
 
-@dataclass(frozen=True)
-class Request:
-    kind: str
-    element: str
-    on: str
-    key: str
-    amount: Amount
-
-
-def requests(recipe: Recipe) -> list[Request]:
-    """The recipe's defect requests in placement order."""
-    d = recipe.defects
-    out = []
-    if d.vacancies:
-        out.append(Request("vacancy", d.vacancies.on, d.vacancies.on, "defects.vacancies",
-                           d.vacancies.amount))
-    for i, s in enumerate(d.substitutions):
-        out.append(Request("substitution", s.element, s.on, f"defects.substitutions[{i}]",
-                           s.amount))
-    for i, s in enumerate(d.interstitials):
-        out.append(Request("interstitial", s.element, s.site, f"defects.interstitials[{i}]",
-                           s.amount))
-    return out
-
-
-def round_half_up(x: float) -> int:
-    """Nearest integer, halves rounded up (not to even), as users expect from 'nearest'."""
-    return int(math.floor(x + 0.5))
-
-
-def requested_count(amount: Amount, n_sites: int) -> int:
-    """Defects asked for: the count, or the fraction of ``n_sites`` rounded to nearest."""
-    if amount.count is not None:
-        return amount.count
-    return round_half_up(amount.fraction * n_sites)
-
-
-def _asked(amount: Amount) -> dict:
-    return {"count": amount.count} if amount.count is not None else {"fraction": amount.fraction}
-
-
-def _pool_sizes(plan: Plan) -> dict[str, int]:
-    """Sites available to each request target before any defect is placed."""
-    lat = LATTICES[plan.recipe.crystal.lattice]
-    sizes = {plan.recipe.crystal.element: plan.n_sites}
-    for kind, sites in lat.interstitials.items():
-        sizes[kind] = len(sites) * plan.n_cells
-    return sizes
-
-
-def planned_counts(plan: Plan) -> list[tuple[Request, int]]:
-    """Each request with the number of defects it will place; refuses impossible requests."""
-    pools = _pool_sizes(plan)
-    used: dict[str, int] = {}
-    out = []
-    for req in requests(plan.recipe):
-        if req.on not in pools:
-            raise InputError(
-                f"`{req.on}` has no sites in the perfect crystal",
-                key=f"{req.key}.on", value=req.on,
-                hint=f"sites can be taken from {plan.recipe.crystal.element}",
-                file=plan.recipe.source)
-        n = requested_count(req.amount, pools[req.on])
-        left = pools[req.on] - used.get(req.on, 0)
-        if n > left:
-            what = "count" if req.amount.count is not None else "fraction"
-            raise InputError(
-                f"asks for {n:,} sites but only {left:,} {req.on} sites are left",
-                key=f"{req.key}.{what}", value=req.amount.count if what == "count" else req.amount.fraction,
-                hint=f"at most {left:,} can be placed", file=plan.recipe.source)
-        used[req.on] = used.get(req.on, 0) + n
-        out.append((req, n))
-    return out
-
-
 def place_defects(plan: Plan, perfect: Structure) -> tuple[Structure, list[Placement]]:
     """Apply the recipe's defects to the perfect supercell, seeded by ``recipe.seed``.
 
@@ -133,7 +57,7 @@ def place_defects(plan: Plan, perfect: Structure) -> tuple[Structure, list[Place
     rng = np.random.default_rng(recipe.seed)
     picker = _Picker(plan, rng)
     placements = [
-        Placement(req.kind, req.element, req.on, req.key, _asked(req.amount),
+        Placement(req.kind, req.element, req.on, req.key, asked(req.amount),
                   np.sort(picker.pick(req, n)))
         for req, n in counts
     ]

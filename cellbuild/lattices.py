@@ -11,9 +11,8 @@ from __future__ import annotations
 
 from dataclasses import dataclass
 from functools import lru_cache
+import math
 from itertools import permutations, product
-
-import numpy as np
 
 
 @dataclass(frozen=True)
@@ -41,7 +40,10 @@ class Lattice:
     def n_basis(self) -> int:
         return len(self.basis)
 
-    def basis_array(self) -> np.ndarray:
+    def basis_array(self):
+        """The basis as a (n_basis, 3) float64 array."""
+        import numpy as np  # lazily: `cellbuild plan` works without numpy's start-up cost
+
         return np.array(self.basis, dtype=np.float64)
 
 
@@ -138,20 +140,25 @@ def shells(name: str, n_shells: int = 4) -> Shells:
     conventional cells; every basis atom of these lattices sees the same shells,
     which is verified here rather than assumed.
     """
-    basis = LATTICES[name].basis_array()
-    offsets = np.array(list(product(range(-2, 3), repeat=3)), dtype=np.float64)
-    images = (offsets[:, None, :] + basis[None, :, :]).reshape(-1, 3)
+    basis = LATTICES[name].basis
+    images = [(i + x, j + y, k + z)
+              for i, j, k in product(range(-2, 3), repeat=3) for x, y, z in basis]
     per_atom = []
     for origin in basis:
-        d = np.linalg.norm(images - origin, axis=1)
-        d = np.sort(d[d > 1e-9])
+        d = sorted(r for r in (math.dist(origin, p) for p in images) if r > 1e-9)
         # group equal distances (to 1e-9 a), keep the exact value of each group
-        starts = np.flatnonzero(np.diff(d, prepend=-1.0) > 1e-9)
-        counts = np.diff(np.append(starts, len(d)))
-        radii = tuple(float(r) for r in d[starts[:n_shells]])
-        per_atom.append((radii, tuple(int(c) for c in counts[:n_shells])))
+        radii: list[float] = []
+        counts: list[int] = []
+        for r in d:
+            if radii and r - radii[-1] <= 1e-9:
+                counts[-1] += 1
+            else:
+                radii.append(r)
+                counts.append(1)
+        per_atom.append((tuple(radii[:n_shells]), tuple(counts[:n_shells])))
     ref_r, ref_c = per_atom[0]
-    if any(c != ref_c or not np.allclose(r, ref_r, atol=1e-9) for r, c in per_atom):
+    if any(c != ref_c or not all(math.isclose(u, v, abs_tol=1e-9) for u, v in zip(r, ref_r))
+           for r, c in per_atom):
         raise AssertionError(f"basis atoms of {name} see different shells")
     return Shells(*per_atom[0])
 
@@ -164,10 +171,10 @@ def touching_radius_factor(name: str) -> float:
 def packing_fraction(name: str) -> float:
     """Fraction of the cell volume filled by touching spheres on the basis sites."""
     r = touching_radius_factor(name)
-    return LATTICES[name].n_basis * (4.0 / 3.0) * np.pi * r**3
+    return LATTICES[name].n_basis * (4.0 / 3.0) * math.pi * r**3
 
 
-def site_table(name: str) -> tuple[np.ndarray, tuple[str, ...], np.ndarray]:
+def site_table(name: str):
     """The grid of every site a structure of this lattice can occupy.
 
     Returns:
@@ -176,6 +183,8 @@ def site_table(name: str) -> tuple[np.ndarray, tuple[str, ...], np.ndarray]:
         (``"lattice"`` or the interstitial kind); and the start offset of each
         kind in that order (lattice first).
     """
+    import numpy as np
+
     lat = LATTICES[name]
     parts = [lat.basis_array()]
     kinds = ["lattice"] * lat.n_basis

@@ -19,7 +19,8 @@ import numpy as np
 from . import __version__
 from .audit import Audit, audit
 from .build import Plan, build_perfect, check_disk_space, resolve
-from .defects import Placement, place_defects, planned_counts
+from .defect_plan import planned_counts
+from .defects import Placement, place_defects
 from .errors import InputError
 from .fileio import StagedFiles
 from .formats import WrittenFile, output_path, write_structure

@@ -4,7 +4,7 @@ from __future__ import annotations
 from pathlib import Path
 
 from .build import Plan, resolve
-from .defects import planned_counts
+from .defect_plan import planned_counts
 
 
 def describe(plan: Plan) -> dict:
