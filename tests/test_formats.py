@@ -179,7 +179,7 @@ def test_lammps_data_round_trip_with_ase(structure, tmp_path):
     assert masses == [f"{t + 1} {float(atomic_masses[atomic_numbers[s]])!r}  # {s}"
                       for t, s in enumerate(structure.symbols)]
     assert "\nAtoms  # atomic\n" in text
-    assert text.splitlines()[0] == "round trip"
+    assert text.splitlines()[0] == "round trip (units metal, atom_style atomic)"
 
 
 def test_xyz_round_trip_with_ase(structure, tmp_path):
@@ -471,11 +471,11 @@ def golden_structures() -> dict:
 #: change here changes every output file: update deliberately, never silently.
 #: The same hashes on another machine show that the bytes are machine-independent.
 GOLDEN = {
-    ("fcc-Cu", "lammps-data"): "efbbe358378d0745f4ca694aa88c273abe1e0aeae845ed043badcfabf72fe3ad",
+    ("fcc-Cu", "lammps-data"): "6c285da4a2a53c6e9c0bcea0dbc53efb74de5f403ce5147f65daccba063a1596",
     ("fcc-Cu", "cif"): "a49202d8b4ec1c66407314c54a38c1a650fe0ff76c35df66b4d405e85b539ec3",
     ("fcc-Cu", "xyz"): "f2d1adddc54c034380d791db040701c449f8e977740254df1acf7e70de02ce33",
     ("fcc-Cu", "poscar"): "a5de30ee6afeea61af74bec837131b74c77158230d15a6a8c319ef5c4a1a7b23",
-    ("skewed", "lammps-data"): "0cb68426166a11f2c1913ccbee426b76832295ab14e84a1f023f5ff9fc87961b",
+    ("skewed", "lammps-data"): "9c9066b66477f06b1d8db044a783a6732178cd043390aed810ce0a44deadfd32",
     ("skewed", "cif"): "b266b4bde116c6cedf901bbb7d18933317c461bae93e04695c5597104f442642",
     ("skewed", "xyz"): "43702c7232c199f5ef37245e79ca8d6275ff454ab5629f5472e6e1c584651312",
     ("skewed", "poscar"): "711c6cfd087997a33f92175b2c95263a67ae851985f4e8fd0e6fac9d028d6c88",

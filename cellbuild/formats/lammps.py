@@ -2,7 +2,7 @@
 
 Layout::
 
-    <title>
+    <title> (units metal, atom_style atomic)
 
     N atoms
     T atom types
@@ -124,7 +124,8 @@ def _numbers(*values: float) -> str:
 def _header(structure: Structure, box: np.ndarray, title: str) -> str:
     (lx, _, _), (xy, ly, _), (xz, yz, lz) = box
     lines = [
-        _text.one_line(title, "LAMMPS data file"),
+        # LAMMPS skips this line; it tells a reader the units and style assumed
+        _text.one_line(f"{title} (units metal, atom_style atomic)", "LAMMPS data file"),
         "",
         f"{structure.n_atoms} atoms",
         f"{len(structure.symbols)} atom types",
