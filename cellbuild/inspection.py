@@ -345,7 +345,7 @@ def match_lattice(counts: np.ndarray, shells: list[dict], volume: float,
     """
     if len(shells) < 2 or counts.size == 0:
         return None, {"reason": "fewer than two neighbour shells were found"}
-    z = int(np.bincount(counts).argmax())
+    z = int(np.bincount(counts, minlength=1).argmax())
     ratio = shells[1]["distance"] / shells[0]["distance"]
     info = {"coordination": z, "shell_ratio": ratio}
     tried = []

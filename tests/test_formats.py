@@ -236,7 +236,7 @@ def test_cif_round_trip_with_pymatgen_and_ase(structure, tmp_path):
                 [site.specie.symbol for site in pmg], order="match")  # pymatgen regroups
     assert_same(structure, atoms.cell[:], atoms.positions, atoms.get_chemical_symbols())
     text = path.read_text()
-    assert text.startswith("data_round_trip\n")
+    assert text.startswith("#\\#CIF_1.1\ndata_round_trip\n")
     assert "_symmetry_space_group_name_H-M 'P 1'" in text
     rows = [line.split() for line in text.split("_atom_site_occupancy\n")[1].splitlines()]
     labels = [r[0] for r in rows]
@@ -472,11 +472,11 @@ def golden_structures() -> dict:
 #: The same hashes on another machine show that the bytes are machine-independent.
 GOLDEN = {
     ("fcc-Cu", "lammps-data"): "6c285da4a2a53c6e9c0bcea0dbc53efb74de5f403ce5147f65daccba063a1596",
-    ("fcc-Cu", "cif"): "a49202d8b4ec1c66407314c54a38c1a650fe0ff76c35df66b4d405e85b539ec3",
+    ("fcc-Cu", "cif"): "e2471ffa169bfd1104427d8ab78a6ba585e1ee78d7167dbad1f76051f1e073d8",
     ("fcc-Cu", "xyz"): "f2d1adddc54c034380d791db040701c449f8e977740254df1acf7e70de02ce33",
     ("fcc-Cu", "poscar"): "a5de30ee6afeea61af74bec837131b74c77158230d15a6a8c319ef5c4a1a7b23",
     ("skewed", "lammps-data"): "9c9066b66477f06b1d8db044a783a6732178cd043390aed810ce0a44deadfd32",
-    ("skewed", "cif"): "b266b4bde116c6cedf901bbb7d18933317c461bae93e04695c5597104f442642",
+    ("skewed", "cif"): "ba66fcb2d9307cb77a1bfe4a37e86252038a9c5b188b9f4b27ab5d98f535cede",
     ("skewed", "xyz"): "43702c7232c199f5ef37245e79ca8d6275ff454ab5629f5472e6e1c584651312",
     ("skewed", "poscar"): "711c6cfd087997a33f92175b2c95263a67ae851985f4e8fd0e6fac9d028d6c88",
 }

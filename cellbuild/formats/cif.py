@@ -110,6 +110,7 @@ def _header(structure: Structure, title: str) -> str:
     (volume,) = _text.format_fixed([abs(_text.det3(structure.cell))], 6)
     formula = " ".join(f"{s}{n}" for s, n in structure.composition().items())
     return "\n".join([
+        "#\\#CIF_1.1",  # the version line CIF 1.1 readers look for
         f"data_{data_name(title)}",
         f"_chemical_formula_sum '{formula}'",
         f"_cell_length_a {a}",
