@@ -1,0 +1,88 @@
+"""Every check of the audit can fail: tamper with a built structure and the
+check that guards that property must say so.
+
+Expected counts come from geometry (common practice): an fcc atom has 12
+nearest neighbours; moving one atom off its site changes its own count and
+those of its neighbours.
+"""
+from __future__ import annotations
+
+import dataclasses
+
+import numpy as np
+import pytest
+
+from cellbuild.audit import audit
+from cellbuild.pipeline import build
+from cellbuild.recipe import parse_recipe
+
+from conftest import recipe_dict
+
+
+def _built(**defects):
+    return build(parse_recipe(recipe_dict("Cu", "fcc", 3.615, (3, 3, 3), defects=defects)))
+
+
+def _failed(built, structure):
+    result = audit(built.plan, structure, built.placements)
+    return {c.name for c in result.checks if not c.passed}, result
+
+
+def test_untouched_structure_passes():
+    b = _built(vacancies={"count": 2}, substitutions=[{"element": "Ni", "count": 3}])
+    assert _failed(b, b.structure)[0] == set()
+
+
+def test_moved_atom_fails_coordination_and_names_the_count():
+    b = _built()
+    positions = b.structure.positions.copy()
+    positions[10] += [0.9, 0.4, 0.0]  # off its site, towards a neighbour
+    failed, result = _failed(b, dataclasses.replace(b.structure, positions=positions))
+    assert "coordination" in failed
+    assert result.values["coordination"]["mismatched"] >= 1
+
+
+def test_atom_moved_to_another_cell_fails_atoms_per_cell():
+    b = _built()
+    positions = b.structure.positions.copy()
+    # from the corner of cell (0, 0, 0) onto the octahedral site of cell (1, 0, 0)
+    positions[0] += [1.5 * 3.615, 3.615 / 2, 3.615 / 2]
+    failed, _ = _failed(b, dataclasses.replace(b.structure, positions=positions))
+    assert {"atoms_per_cell", "coordination"} <= failed
+
+
+def test_overlapping_atoms_fail_min_distance():
+    b = _built()
+    positions = b.structure.positions.copy()
+    positions[5] = positions[4] + [0.3, 0.0, 0.0]
+    failed, result = _failed(b, dataclasses.replace(b.structure, positions=positions))
+    assert "min_distance" in failed
+    assert result.values["close_pairs"]["count"] >= 1
+    assert result.values["min_distance"] == pytest.approx(0.3, abs=1e-9)
+
+
+def test_wrong_species_fails_composition():
+    b = _built(substitutions=[{"element": "Ni", "count": 3}])
+    species = b.structure.species.copy()
+    species[species == b.structure.symbols.index("Ni")] = b.structure.symbols.index("Cu")
+    failed, _ = _failed(b, dataclasses.replace(b.structure, species=species))
+    assert failed == {"composition"}
+
+
+def test_stretched_box_fails_cell_lengths():
+    b = _built()
+    s = b.structure
+    stretched = dataclasses.replace(s, cell=s.cell * 1.01, positions=s.positions * 1.01)
+    failed, _ = _failed(b, stretched)
+    assert "cell_lengths" in failed
+
+
+def test_missing_atom_fails_atoms_per_cell_and_composition():
+    b = _built()
+    s = b.structure
+    keep = np.ones(s.n_atoms, dtype=bool)
+    keep[7] = False  # a vacancy the recipe did not ask for
+    thinned = dataclasses.replace(s, positions=s.positions[keep], species=s.species[keep],
+                                  site=s.site[keep])
+    failed, _ = _failed(b, thinned)
+    assert {"atoms_per_cell", "composition"} <= failed
