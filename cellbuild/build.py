@@ -12,6 +12,7 @@ import math
 import os
 import shutil
 from dataclasses import dataclass
+from pathlib import Path
 
 import numpy as np
 
@@ -164,8 +165,11 @@ def resolve(recipe: Recipe, *, strict: bool = False) -> Plan:
 def check_disk_space(plan: Plan, out_dir: str | os.PathLike) -> None:
     """Refuse before writing when the outputs would not fit on the disk of ``out_dir``."""
     needed = sum(plan.estimated_files.values())
+    existing = Path(out_dir).absolute()
+    while not existing.exists() and existing != existing.parent:
+        existing = existing.parent  # the folder may not exist yet: ask its nearest ancestor
     try:
-        free = shutil.disk_usage(out_dir).free
+        free = shutil.disk_usage(existing).free
     except OSError:
         return
     if needed > free:

@@ -113,8 +113,8 @@ def make(recipe: Recipe, out_dir: str | os.PathLike, *, force: bool = False,
     note = progress or (lambda phase: None)
     check_outputs_free([recipe], out_dir, force)
     built = build(recipe, strict=strict, progress=note)
-    ensure_output_dir(out_dir)
     check_disk_space(built.plan, out_dir)
+    ensure_output_dir(out_dir)
     note("audit")
     result_audit = audit(built.plan, built.structure, built.placements, workers=workers)
     report_path = Path(out_dir) / f"{recipe.name}.report.json"

@@ -221,3 +221,18 @@ def test_absurd_size_is_refused_quickly(cli, tmp_path):
     # refused before allocating: no time-dependent assertion beyond "it returned"
     assert result.exit_code == 2 and "GB" in result.output
     assert time.perf_counter() - start < 60
+
+
+def test_outputs_that_would_not_fit_on_the_disk_are_refused(cli, tmp_path, monkeypatch):
+    from collections import namedtuple
+
+    from cellbuild import build
+
+    usage = namedtuple("usage", "total used free")
+    monkeypatch.setattr(build.shutil, "disk_usage", lambda path: usage(10**6, 10**6 - 1000, 1000))
+    path = tmp_path / "recipe.yaml"
+    path.write_text(GOOD)
+    out = tmp_path / "out"
+    result = cli("make", path, "--out", out)
+    assert result.exit_code == 2 and "disk" in result.output and "size.repeat" in result.output
+    assert not out.exists()
