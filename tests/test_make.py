@@ -171,3 +171,17 @@ def test_console_script_runs(tmp_path):
     result = subprocess.run([sys.executable, "-m", "cellbuild.cli", "--help"],
                             capture_output=True, text=True, timeout=60)
     assert result.returncode == 0 and "make" in result.stdout
+
+
+def test_example_report_is_what_the_demo_recipe_builds(cli, tmp_path):
+    # examples/ ships a report; it must stay what the demo recipe gives (versions aside)
+    from pathlib import Path
+
+    root = Path(__file__).resolve().parent.parent
+    out = tmp_path / "out"
+    assert cli("make", root / "recipes" / "al-host-perfect.yaml", "--out", out).exit_code == 0
+    built = json.loads((out / "al-host-perfect.report.json").read_text())
+    shipped = json.loads((root / "examples" / "al-host-perfect.report.json").read_text())
+    for report in (built, shipped):
+        report.pop("versions")
+    assert built == shipped
