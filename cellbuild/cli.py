@@ -4,6 +4,7 @@ Exit codes: 0 success, 1 a check failed, 2 bad input (nothing written).
 """
 from __future__ import annotations
 
+import contextlib
 import json
 import sys
 from pathlib import Path
@@ -42,6 +43,17 @@ def _os_error(exc: OSError) -> InputError:
     return InputError(f"cannot write ({exc.strerror or exc})", key="--out", value=str(where))
 
 
+@contextlib.contextmanager
+def _bad_input_exits():
+    """Turn bad input (and write failures) inside the block into exit code 2."""
+    try:
+        yield
+    except InputError as exc:
+        raise _fail(exc) from None
+    except OSError as exc:
+        raise _fail(_os_error(exc)) from None
+
+
 @app.callback()
 def _root(debug: bool = typer.Option(False, "--debug", help="Show a traceback on errors.")) -> None:
     _State.debug = debug
@@ -61,7 +73,7 @@ def make(
     from .build import resolve
     from .defect_plan import planned_counts
 
-    try:
+    with _bad_input_exits():
         loaded = _load_points(recipes)
         names = [r.name for r in loaded]
         dup = next((n for n, k in Counter(names).items() if k > 1), None)  # linear: sweeps are long
@@ -71,17 +83,11 @@ def make(
         for r in loaded:  # refuse every bad recipe before writing anything
             planned_counts(resolve(r, strict=strict))
         check_outputs_free(loaded, out, force)
-    except InputError as exc:
-        raise _fail(exc) from None
     code = EXIT_OK
     for recipe in loaded:
-        try:
+        with _bad_input_exits():
             result = make_one(recipe, out, force=True, strict=strict,
                               progress=_progress(recipe.name))
-        except InputError as exc:
-            raise _fail(exc) from None
-        except OSError as exc:
-            raise _fail(_os_error(exc)) from None
         _summary(result)
         if not result.passed:
             code = EXIT_FAILED_CHECK
@@ -201,14 +207,11 @@ def batch(
     bar = ProgressBar() if sys.stderr.isatty() else None
     on_done = bar.update if bar else (lambda o: typer.echo(outcome_line(o)))
     try:
-        result = build_library(source, out, workers=workers, on_done=on_done,
-                               on_planned=bar.planned if bar else None)
-        if junit is not None:
-            write_junit(junit, result.outcomes)
-    except InputError as exc:
-        raise _fail(exc) from None
-    except OSError as exc:
-        raise _fail(_os_error(exc)) from None
+        with _bad_input_exits():
+            result = build_library(source, out, workers=workers, on_done=on_done,
+                                   on_planned=bar.planned if bar else None)
+            if junit is not None:
+                write_junit(junit, result.outcomes)
     finally:
         if bar:
             bar.close()
@@ -250,13 +253,10 @@ def verify(
 
     bar = ProgressBar(label="rebuilding") if sys.stderr.isatty() else None
     try:
-        result = verify_manifest(manifest, workers=workers,
-                                 on_planned=bar.planned if bar else None,
-                                 on_done=bar.update if bar else None)
-    except InputError as exc:
-        raise _fail(exc) from None
-    except OSError as exc:
-        raise _fail(_os_error(exc)) from None
+        with _bad_input_exits():
+            result = verify_manifest(manifest, workers=workers,
+                                     on_planned=bar.planned if bar else None,
+                                     on_done=bar.update if bar else None)
     finally:
         if bar:
             bar.close()

@@ -346,8 +346,8 @@ def parse_recipe(data: Any, lines: Lines | None = None, file: str | None = None)
                          hint="see `cellbuild template fcc`", file=file)
     c.known_keys(data, TOP_KEYS, "")
     if "sweep" in data:
-        c.fail("sweep", data["sweep"], "is expanded by `cellbuild batch` and `cellbuild plan`",
-               "use those commands, or remove `sweep`")
+        c.fail("sweep", data["sweep"], "must be expanded into points before validation",
+               "load the file with cellbuild.sweep.expand_file, as make, plan and batch do")
     for key in ("name", "crystal", "size"):
         if key not in data:
             c.fail_missing(key, "is required", "see `cellbuild template fcc`")
