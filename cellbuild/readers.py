@@ -17,6 +17,7 @@ from __future__ import annotations
 import io
 import math
 import re
+import shlex
 import warnings
 from dataclasses import dataclass, field
 from pathlib import Path
@@ -175,7 +176,7 @@ def _ase_read(path: Path, fmt: str, **kwargs):
 
     try:
         return ase.io.read(str(path), format=fmt, **kwargs)
-    except _READER_ERRORS as exc:
+    except (*_READER_ERRORS, ase.io.ParseError) as exc:
         raise _unreadable(path, fmt, exc) from None
 
 
@@ -197,7 +198,13 @@ def _one_line(message) -> str:
 
 
 def _read_cif(path: Path, types, fast) -> ReadResult:
-    """ASE's CIF reader; pymatgen's parser when ASE refuses the file."""
+    """A numpy reader for plain P 1 files (ASE's CIF reader checks every new
+    site against all earlier ones, which takes minutes at 60,000 atoms); ASE's
+    reader for everything else; pymatgen's parser when ASE refuses the file."""
+    structure = _fast_p1_cif(path)
+    if structure is not None:
+        _check_cif_complete(path, structure)
+        return ReadResult(structure, "cif", "cellbuild (P 1 table)")
     try:
         atoms = _ase_read(path, "cif")
         structure, reader = Structure.from_ase(atoms), "ase"
@@ -206,6 +213,140 @@ def _read_cif(path: Path, types, fast) -> ReadResult:
         reader = "pymatgen"
     _check_cif_complete(path, structure)
     return ReadResult(structure, "cif", reader)
+
+
+_CIF_CELL_TAGS = ("_cell_length_a", "_cell_length_b", "_cell_length_c",
+                  "_cell_angle_alpha", "_cell_angle_beta", "_cell_angle_gamma")
+_CIF_IDENTITY = {"x,y,z", "+x,+y,+z"}
+
+
+def _fast_p1_cif(path: Path) -> Structure | None:
+    """A single-block CIF in space group P 1 whose atom table holds plain numbers,
+    read with numpy; None for anything else (symmetry to expand, uncertainties,
+    quoted fields, several blocks), which goes to the general readers."""
+    text = path.read_text(errors="replace")
+    lines = text.splitlines()
+    if sum(ln.startswith("data_") for ln in lines) != 1:
+        return None
+    tags = _cif_single_values(lines)
+    if not _cif_is_p1(lines, tags) or any(t not in tags for t in _CIF_CELL_TAGS):
+        return None
+    try:
+        cellpar = [float(tags[t]) for t in _CIF_CELL_TAGS]
+    except ValueError:
+        return None  # uncertainties such as 3.61(2): the general reader knows them
+    table = _cif_atom_table(lines)
+    if table is None:
+        return None
+    columns, rows = table
+    want = ("_atom_site_fract_x", "_atom_site_fract_y", "_atom_site_fract_z")
+    symbol_tag = next((t for t in ("_atom_site_type_symbol", "_atom_site_label") if t in columns),
+                      None)
+    if symbol_tag is None or any(t not in columns for t in want):
+        return None
+    fields = " ".join(rows).split()
+    if len(fields) % len(columns) or any(c in "\n".join(rows) for c in "'\"()?"):
+        return None
+    width = len(columns)
+    try:  # every width-th field from each wanted column: no per-row Python work
+        frac = np.stack([np.array(fields[columns.index(t)::width], dtype=np.float64)
+                         for t in want], axis=1)
+    except ValueError:
+        return None
+    symbols = _cif_symbols(np.array(fields[columns.index(symbol_tag)::width]))
+    if symbols is None:
+        return None
+    from ase import Atoms
+    from ase.geometry import cellpar_to_cell
+
+    cell = cellpar_to_cell(cellpar)  # ASE's orientation, as its CIF reader gives
+    atoms = Atoms(symbols=list(symbols), scaled_positions=frac, cell=cell, pbc=True)
+    return Structure.from_ase(atoms)
+
+
+def _cif_single_values(lines: list[str]) -> dict[str, str]:
+    """Tags given with a value on their own line (``_tag value``), lower-cased."""
+    out = {}
+    for ln in lines:
+        parts = ln.split(None, 1)
+        if len(parts) == 2 and parts[0].startswith("_"):
+            out[parts[0].lower()] = parts[1].strip().strip("'\"")
+    return out
+
+
+def _cif_is_p1(lines: list[str], tags: dict[str, str]) -> bool:
+    """True when the file declares P 1 (name, number or only the identity operation)."""
+    names = [tags.get(t) for t in ("_symmetry_space_group_name_h-m",
+                                   "_space_group_name_h-m_alt")]
+    numbers = [tags.get(t) for t in ("_symmetry_int_tables_number", "_space_group_it_number")]
+    ops = _cif_symmetry_ops(lines)
+    declared = [n.replace(" ", "").upper() for n in names if n] + [n for n in numbers if n]
+    if ops is not None and not set(ops) <= _CIF_IDENTITY:
+        return False
+    return bool(declared or ops) and all(d in ("P1", "1") for d in declared)
+
+
+def _cif_symmetry_ops(lines: list[str]) -> list[str] | None:
+    """The operations of a symmetry-operation loop, spaces removed, or None."""
+    for k, ln in enumerate(lines):
+        if ln.strip() != "loop_":
+            continue
+        j = k + 1
+        heads = []
+        while j < len(lines) and lines[j].strip().startswith("_"):
+            heads.append(lines[j].strip().lower())
+            j += 1
+        column = next((c for c, h in enumerate(heads)
+                       if h.endswith(("equiv_pos_as_xyz", "symop_operation_xyz"))), None)
+        if column is not None:
+            ops = []
+            while j < len(lines) and lines[j].strip() and not lines[j].strip().startswith(
+                    ("_", "loop_", "data_", "#")):
+                fields = shlex.split(lines[j])  # an operation is quoted: 'x, y, z'
+                if len(fields) != len(heads):
+                    return ["(unparsed)"]  # leave it to the general readers
+                ops.append(fields[column].replace(" ", "").lower())
+                j += 1
+            return ops
+    return None
+
+
+def _cif_atom_table(lines: list[str]) -> tuple[list[str], list[str]] | None:
+    """Column tags and row lines of the one ``_atom_site_`` loop, or None."""
+    found = None
+    for k, ln in enumerate(lines):
+        if ln.strip() != "loop_":
+            continue
+        j = k + 1
+        heads = []
+        while j < len(lines) and lines[j].strip().startswith("_"):
+            heads.append(lines[j].strip().lower())
+            j += 1
+        if heads and heads[0].startswith("_atom_site_") and not heads[0].startswith(
+                "_atom_site_aniso"):
+            if found is not None:
+                return None
+            rows = []
+            while j < len(lines) and not lines[j].strip().startswith(("_", "loop_", "data_")):
+                if lines[j].strip() and not lines[j].lstrip().startswith("#"):
+                    rows.append(lines[j])
+                j += 1
+            found = (heads, rows)
+    return found
+
+
+def _cif_symbols(labels: np.ndarray) -> np.ndarray | None:
+    """Element symbols from type symbols or labels (Cu, Cu12, Fe2+ -> Cu, Cu, Fe)."""
+    from ase.data import atomic_numbers
+
+    unique, inverse = np.unique(labels, return_inverse=True)
+    symbols = []
+    for label in unique:
+        match = re.match(r"[A-Z][a-z]?", label)
+        if match is None or match.group() not in atomic_numbers:
+            return None
+        symbols.append(match.group())
+    return np.array(symbols)[inverse]
 
 
 def _pymatgen_cif(path: Path, ase_error: InputError) -> Structure:

@@ -401,3 +401,52 @@ def test_space_group_of_a_large_supercell_from_its_repeating_unit(tmp_path):
 def test_bad_option_values_exit_2_naming_the_option(cli, written, option, value):
     result = cli("inspect", written[("cu-fcc", "ase-cif")], option, value)
     assert result.exit_code == 2 and option in result.output and value.split(",")[-1] in result.output
+
+
+# --- the numpy reader for P 1 CIF tables, against ASE's CIF reader (reference library)
+
+def _p1_cif_files(tmp_path):
+    from ase.build import bulk
+    from ase.io import write
+    from pymatgen.io.ase import AseAtomsAdaptor
+
+    atoms = bulk("Cu", "fcc", a=3.61).repeat((2, 3, 2))  # triclinic primitive cells
+    atoms.rattle(0.05, seed=3)
+    atoms.symbols[[1, 5]] = "Ni"
+    ase_file = tmp_path / "ase_p1.cif"
+    write(ase_file, atoms, format="cif")
+    pmg_file = tmp_path / "pmg_p1.cif"
+    AseAtomsAdaptor.get_structure(atoms).to(filename=str(pmg_file))
+    return atoms, [ase_file, pmg_file]
+
+
+def test_p1_cif_table_reader_agrees_with_ase(tmp_path):
+    from ase.io import read
+
+    from cellbuild.readers import read_file
+
+    atoms, files = _p1_cif_files(tmp_path)
+    for path in files:
+        result = read_file(path)
+        assert result.reader.startswith("cellbuild"), (path, result.reader)
+        reference = read(path, format="cif")
+        np.testing.assert_allclose(result.structure.cell, reference.cell[:], atol=1e-6)
+        # the same sites up to whole lattice vectors (ASE wraps into the cell)
+        delta = result.structure.fractional() - reference.get_scaled_positions(wrap=False)
+        np.testing.assert_allclose(delta - np.round(delta), 0.0, atol=1e-7)
+        assert list(result.structure.chemical_symbols()) == reference.get_chemical_symbols()
+        assert result.structure.composition() == {"Cu": 10, "Ni": 2}
+
+
+def test_cif_with_symmetry_goes_to_the_general_reader(tmp_path):
+    from pymatgen.core import Lattice, Structure as PmgStructure
+    from pymatgen.io.cif import CifWriter
+
+    from cellbuild.readers import read_file
+
+    conventional = PmgStructure.from_spacegroup("Fm-3m", Lattice.cubic(3.61), ["Cu"], [[0, 0, 0]])
+    path = tmp_path / "sym.cif"
+    CifWriter(conventional, symprec=0.01).write_file(str(path))
+    result = read_file(path)
+    assert not result.reader.startswith("cellbuild")
+    assert result.structure.n_atoms == 4  # symmetry expanded: fcc conventional cell (Kittel ch. 1)

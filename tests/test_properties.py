@@ -9,6 +9,7 @@ import math
 import tempfile
 from pathlib import Path
 
+import pytest
 import yaml
 from hypothesis import HealthCheck, given, settings
 from hypothesis import strategies as st
@@ -121,3 +122,59 @@ def test_mutated_recipes_build_or_fail_cleanly(data):
 @given(st.text(max_size=200))
 def test_random_text_never_raises(text):
     _check_outcome(text)
+
+
+@pytest.fixture(scope="module")
+def small_files(tmp_path_factory) -> dict[str, bytes]:
+    """A small structure with a substituent, written in every format."""
+    from cellbuild.pipeline import make
+    from cellbuild.recipe import parse_recipe
+
+    out = tmp_path_factory.mktemp("files")
+    recipe = parse_recipe({"name": "f", "crystal": {"element": "Fe", "lattice": "bcc", "a": 2.87},
+                           "size": {"repeat": [2, 2, 2]},
+                           "defects": {"substitutions": [{"element": "Cr", "count": 2}]}})
+    make(recipe, out)
+    return {ext: (out / f"f{ext}").read_bytes() for ext in (".lmp", ".cif", ".xyz", ".vasp")}
+
+
+@st.composite
+def damaged(draw, files: dict[str, bytes]) -> tuple[str, bytes]:
+    """One of the files, cut short, with bytes flipped, or with a line dropped or repeated."""
+    ext = draw(st.sampled_from(sorted(files)))
+    data = bytearray(files[ext])
+    how = draw(st.sampled_from(["cut", "flip", "drop", "repeat"]))
+    if how == "cut":
+        data = data[:draw(st.integers(0, len(data) - 1))]
+    elif how == "flip":
+        for _ in range(draw(st.integers(1, 4))):
+            data[draw(st.integers(0, len(data) - 1))] = draw(st.integers(0, 255))
+    else:
+        lines = bytes(data).split(b"\n")
+        i = draw(st.integers(0, len(lines) - 1))
+        if how == "drop":
+            del lines[i]
+        else:
+            lines.insert(i, lines[draw(st.integers(0, len(lines) - 1))])
+        data = bytearray(b"\n".join(lines))
+    return ext, bytes(data)
+
+
+def test_damaged_files_inspect_cleanly(small_files):
+    # inspect either reads the file (exit 0 or 1) or refuses it with one sentence (exit 2)
+    @settings(max_examples=int(__import__("os").environ.get("CELLBUILD_EXAMPLES", 60)),
+              deadline=None, suppress_health_check=[HealthCheck.too_slow])
+    @given(damaged(small_files))
+    def check(case):
+        ext, data = case
+        with tempfile.TemporaryDirectory() as tmp:
+            path = Path(tmp) / f"damaged{ext}"
+            path.write_bytes(data)
+            result = CliRunner().invoke(app, ["inspect", str(path)])
+            assert result.exception is None or isinstance(result.exception, SystemExit), \
+                repr(result.exception)
+            assert result.exit_code in (0, 1, 2)
+            if result.exit_code == 2:
+                assert "error: " in result.output and "Traceback" not in result.output
+
+    check()
