@@ -205,6 +205,7 @@ def _read_cif(path: Path, types, fast) -> ReadResult:
     if structure is not None:
         _check_cif_complete(path, structure)
         return ReadResult(structure, "cif", "cellbuild (P 1 table)")
+    _refuse_large_cif_table(path)
     try:
         atoms = _ase_read(path, "cif")
         structure, reader = Structure.from_ase(atoms), "ase"
@@ -264,6 +265,39 @@ def _fast_p1_cif(path: Path) -> Structure | None:
     return Structure.from_ase(atoms)
 
 
+#: Atom rows above which a CIF the table reader cannot take is refused: ASE's
+#: reader compares each new site with all earlier ones (minutes at 60,000).
+CIF_GENERAL_MAX_ROWS = 20_000
+
+
+def _refuse_large_cif_table(path: Path) -> None:
+    """InputError for a big atom table the P 1 table reader could not take,
+    naming the first row whose field count is off when there is one."""
+    lines = path.read_text(errors="replace").splitlines()
+    table = _cif_atom_table(lines)
+    if table is None or len(table[1]) <= CIF_GENERAL_MAX_ROWS:
+        return
+    columns, rows = table
+    # error path only: find the damaged row to name it
+    bad = next((r for r in rows if len(_cif_fields(r)) != len(columns)), None)
+    if bad is not None:
+        raise InputError(f"has an atom row with {len(_cif_fields(bad))} fields "
+                         f"where the table has {len(columns)} columns",
+                         file=str(path), line=lines.index(bad) + 1)
+    raise InputError(f"has {len(rows):,} atom rows with symmetry operations, uncertainties "
+                     "or quoted fields, which only the general CIF reader takes, and it would "
+                     "take very long at this size", hint="write the structure in P 1 with plain "
+                     "numbers, or as LAMMPS data or extended XYZ", file=str(path))
+
+
+def _cif_fields(row: str) -> list[str]:
+    """The fields of one CIF row (quotes respected where they pair up)."""
+    try:
+        return shlex.split(row, comments=True)
+    except ValueError:  # an unpaired quote
+        return row.split()
+
+
 def _cif_single_values(lines: list[str]) -> dict[str, str]:
     """Tags given with a value on their own line (``_tag value``), lower-cased."""
     out = {}
@@ -302,7 +336,7 @@ def _cif_symmetry_ops(lines: list[str]) -> list[str] | None:
             ops = []
             while j < len(lines) and lines[j].strip() and not lines[j].strip().startswith(
                     ("_", "loop_", "data_", "#")):
-                fields = shlex.split(lines[j])  # an operation is quoted: 'x, y, z'
+                fields = _cif_fields(lines[j])  # an operation is quoted: 'x, y, z'
                 if len(fields) != len(heads):
                     return ["(unparsed)"]  # leave it to the general readers
                 ops.append(fields[column].replace(" ", "").lower())

@@ -450,3 +450,20 @@ def test_cif_with_symmetry_goes_to_the_general_reader(tmp_path):
     result = read_file(path)
     assert not result.reader.startswith("cellbuild")
     assert result.structure.n_atoms == 4  # symmetry expanded: fcc conventional cell (Kittel ch. 1)
+
+
+def test_damaged_large_p1_cif_is_refused_with_its_line(cli, recipe_file, tmp_path):
+    # a row with an extra field: the table reader cannot take it, and the general
+    # reader would take minutes at this size, so the file is refused at that row
+    data = {"name": "big", "crystal": {"element": "Cu", "lattice": "fcc", "a": 3.61},
+            "size": {"repeat": [18, 18, 18]}, "outputs": ["cif"]}
+    out = tmp_path / "out"
+    assert cli("make", recipe_file(data), "--out", out).exit_code == 0
+    path = out / "big.cif"
+    lines = path.read_text().splitlines()
+    row = len(lines) - 100
+    lines[row] = "  x " + lines[row]
+    path.write_text("\n".join(lines) + "\n")
+    result = cli("inspect", path)
+    assert result.exit_code == 2
+    assert f"line {row + 1}" in result.output and "fields" in result.output
