@@ -438,6 +438,7 @@ def test_p1_cif_table_reader_agrees_with_ase(tmp_path):
         assert result.structure.composition() == {"Cu": 10, "Ni": 2}
 
 
+@pytest.mark.filterwarnings("ignore::DeprecationWarning")  # spglib, called by pymatgen's writer
 def test_cif_with_symmetry_goes_to_the_general_reader(tmp_path):
     from pymatgen.core import Lattice, Structure as PmgStructure
     from pymatgen.io.cif import CifWriter
