@@ -201,57 +201,101 @@ def _read_cif(path: Path, types, fast) -> ReadResult:
     """A numpy reader for plain P 1 files (ASE's CIF reader checks every new
     site against all earlier ones, which takes minutes at 60,000 atoms); ASE's
     reader for everything else; pymatgen's parser when ASE refuses the file."""
-    structure = _fast_p1_cif(path)
+    text = path.read_text(errors="replace")
+    loops = _cif_loops(text)
+    structure = _fast_p1_cif(text, loops)
     if structure is not None:
-        _check_cif_complete(path, structure)
+        _check_cif_complete(path, structure, text, loops)
         return ReadResult(structure, "cif", "cellbuild (P 1 table)")
-    _refuse_large_cif_table(path)
+    _refuse_large_cif_table(path, loops)
     try:
         atoms = _ase_read(path, "cif")
         structure, reader = Structure.from_ase(atoms), "ase"
     except InputError as ase_error:
         structure = _pymatgen_cif(path, ase_error)
         reader = "pymatgen"
-    _check_cif_complete(path, structure)
+    _check_cif_complete(path, structure, text, loops)
     return ReadResult(structure, "cif", reader)
+
+
+@dataclass(frozen=True)
+class _CifLoop:
+    """One ``loop_`` of a CIF: its lower-cased column tags and the text of its rows."""
+
+    heads: tuple[str, ...]
+    body: str
+    body_line: int  # 1-based line where ``body`` starts
+
+    def rows(self) -> list[str]:
+        """Row lines, blank and comment lines left out (error paths and small loops)."""
+        return [ln for ln in self.body.splitlines()
+                if ln.strip() and not ln.lstrip().startswith("#")]
+
+
+_LOOP_START = re.compile(r"^[ \t]*loop_[ \t]*$", re.MULTILINE)
+_LOOP_HEAD = re.compile(r"\n[ \t]*(_\S+)[ \t]*(?=\n|$)")
+_LOOP_END = re.compile(r"^[ \t]*(?:_|loop_|data_)", re.MULTILINE)
+_SINGLE_VALUE = re.compile(r"^[ \t]*(_\S+)[ \t]+(\S[^\n]*?)[ \t]*$", re.MULTILINE)
+
+
+def _cif_loops(text: str) -> list[_CifLoop]:
+    """Every loop of the text, found by regular expressions: the scan runs in C,
+    not a Python loop over the (possibly million) atom rows."""
+    loops = []
+    for match in _LOOP_START.finditer(text):
+        pos, heads = match.end(), []
+        while (head := _LOOP_HEAD.match(text, pos)) is not None:
+            heads.append(head.group(1).lower())
+            pos = head.end()
+        end = _LOOP_END.search(text, pos)
+        stop = end.start() if end else len(text)
+        loops.append(_CifLoop(tuple(heads), text[pos:stop], text.count("\n", 0, pos) + 1))
+    return loops
+
+
+def _atom_site_loop(loops: list[_CifLoop]) -> _CifLoop | None:
+    """The one ``_atom_site_`` loop (anisotropic displacements aside), or None."""
+    found = [lp for lp in loops if lp.heads and lp.heads[0].startswith("_atom_site_")
+             and not lp.heads[0].startswith("_atom_site_aniso")]
+    return found[0] if len(found) == 1 else None
 
 
 _CIF_CELL_TAGS = ("_cell_length_a", "_cell_length_b", "_cell_length_c",
                   "_cell_angle_alpha", "_cell_angle_beta", "_cell_angle_gamma")
 _CIF_IDENTITY = {"x,y,z", "+x,+y,+z"}
+_CIF_FRACTIONAL = ("_atom_site_fract_x", "_atom_site_fract_y", "_atom_site_fract_z")
 
 
-def _fast_p1_cif(path: Path) -> Structure | None:
+def _fast_p1_cif(text: str, loops: list[_CifLoop]) -> Structure | None:
     """A single-block CIF in space group P 1 whose atom table holds plain numbers,
     read with numpy; None for anything else (symmetry to expand, uncertainties,
     quoted fields, several blocks), which goes to the general readers."""
-    text = path.read_text(errors="replace")
-    lines = text.splitlines()
-    if sum(ln.startswith("data_") for ln in lines) != 1:
+    if len(re.findall(r"^data_", text, re.MULTILINE)) != 1:
         return None
-    tags = _cif_single_values(lines)
-    if not _cif_is_p1(lines, tags) or any(t not in tags for t in _CIF_CELL_TAGS):
+    tags = {m.group(1).lower(): m.group(2).strip("'\"") for m in _SINGLE_VALUE.finditer(text)}
+    if not _cif_is_p1(loops, tags) or any(t not in tags for t in _CIF_CELL_TAGS):
         return None
     try:
         cellpar = [float(tags[t]) for t in _CIF_CELL_TAGS]
     except ValueError:
         return None  # uncertainties such as 3.61(2): the general reader knows them
-    table = _cif_atom_table(lines)
+    table = _atom_site_loop(loops)
     if table is None:
         return None
-    columns, rows = table
-    want = ("_atom_site_fract_x", "_atom_site_fract_y", "_atom_site_fract_z")
+    columns = list(table.heads)
     symbol_tag = next((t for t in ("_atom_site_type_symbol", "_atom_site_label") if t in columns),
                       None)
-    if symbol_tag is None or any(t not in columns for t in want):
+    if symbol_tag is None or any(t not in columns for t in _CIF_FRACTIONAL):
         return None
-    fields = " ".join(rows).split()
-    if len(fields) % len(columns) or any(c in "\n".join(rows) for c in "'\"()?"):
-        return None
+    if any(c in table.body for c in "'\"()?#"):
+        return None  # quoted fields, uncertainties, unknowns or comments
+    fields = table.body.split()
     width = len(columns)
+    if not fields or len(fields) % width:
+        return None
     try:  # every width-th field from each wanted column: no per-row Python work
         frac = np.stack([np.array(fields[columns.index(t)::width], dtype=np.float64)
-                         for t in want], axis=1)
+                         for t in _CIF_FRACTIONAL], axis=1)
     except ValueError:
         return None
     symbols = _cif_symbols(np.array(fields[columns.index(symbol_tag)::width]))
@@ -270,24 +314,23 @@ def _fast_p1_cif(path: Path) -> Structure | None:
 CIF_GENERAL_MAX_ROWS = 20_000
 
 
-def _refuse_large_cif_table(path: Path) -> None:
+def _refuse_large_cif_table(path: Path, loops: list[_CifLoop]) -> None:
     """InputError for a big atom table the P 1 table reader could not take,
     naming the first row whose field count is off when there is one."""
-    lines = path.read_text(errors="replace").splitlines()
-    table = _cif_atom_table(lines)
-    if table is None or len(table[1]) <= CIF_GENERAL_MAX_ROWS:
+    table = _atom_site_loop(loops)
+    if table is None or table.body.count("\n") <= CIF_GENERAL_MAX_ROWS:
         return
-    columns, rows = table
+    width = len(table.heads)
     # error path only: find the damaged row to name it
-    bad = next((r for r in rows if len(_cif_fields(r)) != len(columns)), None)
-    if bad is not None:
-        raise InputError(f"has an atom row with {len(_cif_fields(bad))} fields "
-                         f"where the table has {len(columns)} columns",
-                         file=str(path), line=lines.index(bad) + 1)
-    raise InputError(f"has {len(rows):,} atom rows with symmetry operations, uncertainties "
-                     "or quoted fields, which only the general CIF reader takes, and it would "
-                     "take very long at this size", hint="write the structure in P 1 with plain "
-                     "numbers, or as LAMMPS data or extended XYZ", file=str(path))
+    for offset, row in enumerate(table.body.splitlines()):
+        if row.strip() and not row.lstrip().startswith("#") and len(_cif_fields(row)) != width:
+            raise InputError(f"has an atom row with {len(_cif_fields(row))} fields "
+                             f"where the table has {width} columns",
+                             file=str(path), line=table.body_line + offset)
+    raise InputError(f"has {len(table.rows()):,} atom rows with symmetry operations, "
+                     "uncertainties or quoted fields, which only the general CIF reader takes, "
+                     "and it would take very long at this size", hint="write the structure in "
+                     "P 1 with plain numbers, or as LAMMPS data or extended XYZ", file=str(path))
 
 
 def _cif_fields(row: str) -> list[str]:
@@ -298,75 +341,33 @@ def _cif_fields(row: str) -> list[str]:
         return row.split()
 
 
-def _cif_single_values(lines: list[str]) -> dict[str, str]:
-    """Tags given with a value on their own line (``_tag value``), lower-cased."""
-    out = {}
-    for ln in lines:
-        parts = ln.split(None, 1)
-        if len(parts) == 2 and parts[0].startswith("_"):
-            out[parts[0].lower()] = parts[1].strip().strip("'\"")
-    return out
-
-
-def _cif_is_p1(lines: list[str], tags: dict[str, str]) -> bool:
+def _cif_is_p1(loops: list[_CifLoop], tags: dict[str, str]) -> bool:
     """True when the file declares P 1 (name, number or only the identity operation)."""
     names = [tags.get(t) for t in ("_symmetry_space_group_name_h-m",
                                    "_space_group_name_h-m_alt")]
     numbers = [tags.get(t) for t in ("_symmetry_int_tables_number", "_space_group_it_number")]
-    ops = _cif_symmetry_ops(lines)
+    ops = _cif_symmetry_ops(loops)
     declared = [n.replace(" ", "").upper() for n in names if n] + [n for n in numbers if n]
     if ops is not None and not set(ops) <= _CIF_IDENTITY:
         return False
     return bool(declared or ops) and all(d in ("P1", "1") for d in declared)
 
 
-def _cif_symmetry_ops(lines: list[str]) -> list[str] | None:
-    """The operations of a symmetry-operation loop, spaces removed, or None."""
-    for k, ln in enumerate(lines):
-        if ln.strip() != "loop_":
-            continue
-        j = k + 1
-        heads = []
-        while j < len(lines) and lines[j].strip().startswith("_"):
-            heads.append(lines[j].strip().lower())
-            j += 1
-        column = next((c for c, h in enumerate(heads)
+def _cif_symmetry_ops(loops: list[_CifLoop]) -> list[str] | None:
+    """The operations of the symmetry-operation loop, spaces removed, or None."""
+    for loop in loops:
+        column = next((c for c, h in enumerate(loop.heads)
                        if h.endswith(("equiv_pos_as_xyz", "symop_operation_xyz"))), None)
-        if column is not None:
-            ops = []
-            while j < len(lines) and lines[j].strip() and not lines[j].strip().startswith(
-                    ("_", "loop_", "data_", "#")):
-                fields = _cif_fields(lines[j])  # an operation is quoted: 'x, y, z'
-                if len(fields) != len(heads):
-                    return ["(unparsed)"]  # leave it to the general readers
-                ops.append(fields[column].replace(" ", "").lower())
-                j += 1
-            return ops
-    return None
-
-
-def _cif_atom_table(lines: list[str]) -> tuple[list[str], list[str]] | None:
-    """Column tags and row lines of the one ``_atom_site_`` loop, or None."""
-    found = None
-    for k, ln in enumerate(lines):
-        if ln.strip() != "loop_":
+        if column is None:
             continue
-        j = k + 1
-        heads = []
-        while j < len(lines) and lines[j].strip().startswith("_"):
-            heads.append(lines[j].strip().lower())
-            j += 1
-        if heads and heads[0].startswith("_atom_site_") and not heads[0].startswith(
-                "_atom_site_aniso"):
-            if found is not None:
-                return None
-            rows = []
-            while j < len(lines) and not lines[j].strip().startswith(("_", "loop_", "data_")):
-                if lines[j].strip() and not lines[j].lstrip().startswith("#"):
-                    rows.append(lines[j])
-                j += 1
-            found = (heads, rows)
-    return found
+        ops = []
+        for row in loop.rows():
+            fields = _cif_fields(row)  # an operation is quoted: 'x, y, z'
+            if len(fields) != len(loop.heads):
+                return ["(unparsed)"]  # leave it to the general readers
+            ops.append(fields[column].replace(" ", "").lower())
+        return ops
+    return None
 
 
 def _cif_symbols(labels: np.ndarray) -> np.ndarray | None:
@@ -396,7 +397,8 @@ def _pymatgen_cif(path: Path, ase_error: InputError) -> Structure:
         raise ase_error from None
 
 
-def _check_cif_complete(path: Path, structure: Structure) -> None:
+def _check_cif_complete(path: Path, structure: Structure, text: str,
+                        loops: list[_CifLoop]) -> None:
     """Refuse a CIF whose atom table was cut short.
 
     A CIF loop is a stream of tokens, so readers accept a table that simply
@@ -404,11 +406,11 @@ def _check_cif_complete(path: Path, structure: Structure) -> None:
     fields than the loop has columns, or the declared ``_chemical_formula_sum``
     is not a whole multiple of the atoms read.
     """
-    line = _cif_short_row(path)
+    line = _cif_short_row(loops)
     if line is not None:
         raise InputError("ends in the middle of the atom table (the last row is incomplete); "
                          "the file looks truncated", file=str(path), line=line)
-    declared = _cif_formula_sum(path)
+    declared = _cif_formula_sum(text)
     if declared and not _whole_multiple(structure.composition(), declared):
         got = " ".join(f"{k}{v}" for k, v in structure.composition().items())
         want = " ".join(f"{k}{v:g}" for k, v in declared.items())
@@ -416,29 +418,24 @@ def _check_cif_complete(path: Path, structure: Structure) -> None:
                          "the file looks truncated", file=str(path))
 
 
-def _cif_short_row(path: Path) -> int | None:
-    """1-based line of an incomplete last row of the last ``_atom_site_`` loop, or None."""
-    lines = path.read_text(errors="replace").splitlines()
-    start = max((k for k, ln in enumerate(lines) if ln.strip() == "loop_"), default=None)
-    if start is None:
+def _cif_short_row(loops: list[_CifLoop]) -> int | None:
+    """1-based line of an incomplete last row of the last loop, if it is an
+    ``_atom_site_`` loop whose fields do not fill its columns; else None."""
+    if not loops or not any(h.startswith("_atom_site_") for h in loops[-1].heads):
         return None
-    keys, k = 0, start + 1
-    while k < len(lines) and lines[k].strip().startswith("_"):
-        keys += lines[k].strip().startswith("_atom_site_")
-        k += 1
-    if keys == 0:
+    table = loops[-1]
+    body = table.body.rstrip()
+    width = len(table.heads)
+    if not body or len(body.split()) % width == 0:
         return None
-    rows = [(n, ln.split()) for n, ln in enumerate(lines[k:], start=k + 1)
-            if ln.strip() and not ln.lstrip().startswith("#")]
-    columns = k - start - 1
-    if rows and all(len(r) == columns for _, r in rows[:-1]) and len(rows[-1][1]) < columns:
-        return rows[-1][0]
-    return None
+    last = body.rsplit("\n", 1)[-1]
+    if len(last.split()) >= width:
+        return None
+    return table.body_line + body.count("\n")
 
 
-def _cif_formula_sum(path: Path) -> dict[str, float] | None:
-    match = re.search(r"^_chemical_formula_sum\s+['\"]?([^'\"\n]+)", path.read_text(
-        errors="replace"), re.MULTILINE)
+def _cif_formula_sum(text: str) -> dict[str, float] | None:
+    match = re.search(r"^_chemical_formula_sum\s+['\"]?([^'\"\n]+)", text, re.MULTILINE)
     if not match:
         return None
     pairs = re.findall(r"([A-Z][a-z]?)\s*([0-9.]*)", match.group(1))
