@@ -18,7 +18,8 @@ from itertools import product
 import numpy as np
 
 from . import neighbours
-from .build import AVOGADRO, ANGSTROM3_TO_CM3, Plan, replicate, standard_atomic_weight
+from .build import (AVOGADRO, ANGSTROM3_TO_CM3, Plan, replicate, site_positions,
+                    standard_atomic_weight)
 from .defects import Placement
 from .lattices import LATTICES, packing_fraction, shells, site_table
 from .structure import Structure
@@ -213,8 +214,6 @@ def _atoms_per_cell_check(plan: Plan, structure: Structure, placements) -> Check
     lattice_atoms = structure.positions[: structure.n_atoms - n_interstitial]
     vacant = np.concatenate([p.site_ids for p in placements if p.kind == "vacancy"] or
                             [np.empty(0, np.int64)])
-    from .build import site_positions
-
     points = np.concatenate([lattice_atoms, site_positions(
         plan.recipe.crystal.lattice, a, plan.repeat, vacant)])
     idx = np.floor(points / a + 1e-9).astype(np.int64) % np.array(plan.repeat)

@@ -532,22 +532,27 @@ def _count_by_shifts(occupancy: np.ndarray, offsets: np.ndarray,
 
 def _count_by_gather(occupancy: np.ndarray, grid: np.ndarray, offsets: np.ndarray,
                      flat: np.ndarray) -> np.ndarray:
-    """Occupancy at site + offset (mod grid) gathered for the atoms, per offset.
-
-    The flat index of a shifted site is a sum of three per-axis lookup tables,
-    which avoids a modulo over all atoms per offset.
-    """
+    """Occupancy at site + offset (mod grid) gathered for the atoms, per offset."""
     sites = np.unravel_index(flat, tuple(grid))
-    strides = np.array([grid[1] * grid[2], grid[2], 1], dtype=np.int64)
     total = np.zeros(len(flat), dtype=np.int32)
     shifted = np.empty(len(flat), dtype=np.int64)
     for d in offsets.tolist():
-        tables = [((np.arange(grid[k]) + d[k]) % grid[k]) * strides[k] for k in range(3)]
-        np.take(tables[0], sites[0], out=shifted)
-        shifted += tables[1][sites[1]]
-        shifted += tables[2][sites[2]]
-        total += occupancy[shifted]
+        total += occupancy[_shifted_sites(grid, sites, d, out=shifted)]
     return total
+
+
+def _shifted_sites(grid: np.ndarray, sites: tuple, offset, out: np.ndarray) -> np.ndarray:
+    """Flat (C-order) index of each site + ``offset`` (mod grid), written to ``out``.
+
+    ``sites`` are per-axis site indices (from ``np.unravel_index``). The index is
+    a sum of three per-axis lookup tables, which avoids a modulo over all atoms.
+    """
+    strides = (int(grid[1] * grid[2]), int(grid[2]), 1)
+    tables = [((np.arange(grid[k]) + offset[k]) % grid[k]) * strides[k] for k in range(3)]
+    np.take(tables[0], sites[0], out=out)
+    out += tables[1][sites[1]]
+    out += tables[2][sites[2]]
+    return out
 
 
 def _grid_min_distance(cell: np.ndarray, positions: np.ndarray, radius: float,
@@ -573,12 +578,9 @@ def _grid_min_distance(cell: np.ndarray, positions: np.ndarray, radius: float,
         return None
     lengths = np.linalg.norm(_times(offsets.astype(np.float64), cell / grid[:, None]), axis=1)
     axis_sites = np.unravel_index(flat, tuple(grid))
-    strides = np.array([grid[1] * grid[2], grid[2], 1], dtype=np.int64)
+    shifted = np.empty(len(flat), dtype=np.int64)
     for k in np.argsort(lengths, kind="stable"):
-        # flat index of site + offset (mod grid) as a sum of per-axis tables
-        shifted = sum(((np.arange(grid[a]) + offsets[k, a]) % grid[a] * strides[a])[axis_sites[a]]
-                      for a in range(3))
-        partner = atom_at[shifted]
+        partner = atom_at[_shifted_sites(grid, axis_sites, offsets[k].tolist(), out=shifted)]
         hits = np.flatnonzero(partner >= 0)
         if hits.size:
             i, j = int(hits[0]), int(partner[hits[0]])
