@@ -81,6 +81,7 @@ def test_batch_mirrors_folders_and_writes_the_manifest(built):
     swept = by_name["cu-vac__seed-2__count-1"]
     assert swept["recipe"] == "../lib/vac/swept.yml"
     assert swept["sweep"] == {"seed": 2, "defects.vacancies.count": 1}
+    # fcc 2x2x2: 4 atoms per conventional cell (Kittel ch. 1) x 8 cells, less 1 vacancy
     assert swept["seed"] == 2 and swept["n_atoms"] == 31 and swept["passed"] is True
     assert "error" not in swept
     recipe_bytes = (root / "lib" / "vac" / "swept.yml").read_bytes()
@@ -195,7 +196,8 @@ def test_one_invalid_recipe_does_not_stop_the_others(tmp_path, cli):
 def test_failed_checks_exit_1_and_show_in_junit(tmp_path, cli):
     lib = tmp_path / "lib"
     _write(lib / "ok.yaml", recipe_dict(name="ok", outputs=["xyz"]))
-    # a distance threshold above the nearest-neighbour distance (2.556 A) fails `min_distance`
+    # a threshold above the nearest-neighbour distance a/sqrt(2) = 2.556 A (fcc geometry,
+    # Kittel ch. 1) fails `min_distance`; 32 atoms = 4 per cell x 2x2x2 cells
     _write(lib / "tight.yaml", recipe_dict(name="tight", outputs=["xyz"],
                                            checks={"min_distance": 3.0}))
     junit = tmp_path / "junit.xml"

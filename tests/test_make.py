@@ -65,7 +65,7 @@ def test_all_formats_read_back_by_ase_and_pymatgen(cli, recipe_file, tmp_path):
     assert result.exit_code == 0, result.output
     report = json.loads((out / "fe-bcc.report.json").read_text())
     n = report["n_atoms"]
-    assert n == 2 * 12
+    assert n == 2 * 12  # bcc: 2 atoms per conventional cell (Kittel ch. 1) x 3*2*2 cells
     a = 2.87
     cell = np.diag([3 * a, 2 * a, 2 * a])
     readers = {
@@ -131,7 +131,7 @@ def test_plan_agrees_with_make(cli, recipe_file, tmp_path):
     out = tmp_path / "out"
     assert cli("make", path, "--out", out).exit_code == 0
     report = json.loads((out / "w-bcc.report.json").read_text())
-    assert planned["n_atoms"] == report["n_atoms"] == 250
+    assert planned["n_atoms"] == report["n_atoms"] == 250  # bcc: 2 per cell (Kittel) x 5^3
     assert planned["repeat"] == report["repeat"]
     assert planned["lattice_constant"] == report["lattice_constant"]
     assert planned["box"] == pytest.approx(report["cell_lengths"])
