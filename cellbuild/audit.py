@@ -210,8 +210,9 @@ def _atoms_per_cell_check(plan: Plan, structure: Structure, placements) -> Check
     the placements) are left out.
     """
     a = plan.lattice_constant
-    n_interstitial = sum(p.count for p in placements if p.kind == "interstitial")
-    lattice_atoms = structure.positions[: structure.n_atoms - n_interstitial]
+    n_grid = len(site_table(plan.recipe.crystal.lattice)[0])
+    n_basis = LATTICES[plan.recipe.crystal.lattice].n_basis
+    lattice_atoms = structure.positions[structure.site % n_grid < n_basis]
     vacant = np.concatenate([p.site_ids for p in placements if p.kind == "vacancy"] or
                             [np.empty(0, np.int64)])
     points = np.concatenate([lattice_atoms, site_positions(

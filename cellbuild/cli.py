@@ -1,6 +1,9 @@
 """The `cellbuild` command line: a thin layer over :mod:`cellbuild.pipeline`.
 
-Exit codes: 0 success, 1 a check failed, 2 bad input (nothing written).
+Exit codes: 0 success, 1 a check failed, 2 bad input (nothing written), 3 a bug in
+cellbuild (one sentence asking for a report; ``--debug`` shows the traceback), 141 the
+reader of standard output went away (``cellbuild ... | head``), 130 / 143 interrupted or
+terminated (no partial files are left).
 """
 from __future__ import annotations
 
@@ -21,7 +24,9 @@ app = typer.Typer(
     pretty_exceptions_enable=False,
 )
 
-EXIT_OK, EXIT_FAILED_CHECK, EXIT_BAD_INPUT = 0, 1, 2
+EXIT_OK, EXIT_FAILED_CHECK, EXIT_BAD_INPUT, EXIT_BUG = 0, 1, 2, 3
+#: 128 + the signal number, as a shell reports a process ended by that signal.
+EXIT_INTERRUPTED, EXIT_BROKEN_PIPE, EXIT_TERMINATED = 130, 141, 143
 
 
 class _State:
@@ -38,20 +43,37 @@ def _fail(exc: BaseException) -> "typer.Exit":
     return typer.Exit(EXIT_BAD_INPUT)
 
 
-def _os_error(exc: OSError) -> InputError:
-    where = exc.filename or ""
-    return InputError(f"cannot write ({exc.strerror or exc})", key="--out", value=str(where))
+def _os_error(exc: OSError, out: Path | None) -> InputError:
+    """A write failure (disk full, permissions) as bad input naming the file or folder."""
+    where = exc.filename or (str(out) if out is not None else None)
+    what = exc.strerror or type(exc).__name__
+    if where is None:
+        return InputError(f"cannot write the outputs ({what})", key="--out")
+    return InputError(f"cannot write ({what})", key="--out", value=str(where))
 
 
 @contextlib.contextmanager
-def _bad_input_exits():
-    """Turn bad input (and write failures) inside the block into exit code 2."""
+def _bad_input_exits(out: Path | None = None):
+    """Turn bad input (and write failures under ``out``) inside the block into exit 2.
+
+    A closed standard output (BrokenPipeError) is not a write failure of ours:
+    it passes through to :func:`main`.
+    """
     try:
         yield
     except InputError as exc:
         raise _fail(exc) from None
+    except BrokenPipeError:
+        raise
     except OSError as exc:
-        raise _fail(_os_error(exc)) from None
+        raise _fail(_os_error(exc, out)) from None
+
+
+def _positive_workers(workers: Optional[int]) -> Optional[int]:
+    if workers is not None and workers < 1:
+        raise InputError("must be at least 1", key="--workers", value=workers,
+                         hint="leave it out to use every core")
+    return workers
 
 
 @app.callback()
@@ -69,11 +91,11 @@ def make(
     """Build each recipe, audit it and write its files and NAME.report.json."""
     from collections import Counter
 
-    from .pipeline import check_outputs_free, make as make_one
+    from .pipeline import build, check_outputs_free, make as make_one
     from .build import resolve
     from .defect_plan import planned_counts
 
-    with _bad_input_exits():
+    with _bad_input_exits(out):
         loaded = _load_points(recipes)
         names = [r.name for r in loaded]
         dup = next((n for n, k in Counter(names).items() if k > 1), None)  # linear: sweeps are long
@@ -83,9 +105,14 @@ def make(
         for r in loaded:  # refuse every bad recipe before writing anything
             planned_counts(resolve(r, strict=strict))
         check_outputs_free(loaded, out, force)
+        if len(loaded) > 1:
+            # placement can still refuse (min_separation): place every recipe's
+            # defects once before the first file is written
+            for r in loaded:
+                build(r, strict=strict)
     code = EXIT_OK
     for recipe in loaded:
-        with _bad_input_exits():
+        with _bad_input_exits(out):
             result = make_one(recipe, out, force=True, strict=strict,
                               progress=_progress(recipe.name))
         _summary(result)
@@ -187,7 +214,7 @@ def batch(
     source: Path = typer.Argument(..., metavar="DIR",
                                   help="Folder of recipes, searched recursively for *.yaml and *.yml."),
     out: Path = typer.Option(..., "--out", "-o", help="Library folder; gets OUT/manifest.json."),
-    workers: Optional[int] = typer.Option(None, "--workers", "-j", min=1,
+    workers: Optional[int] = typer.Option(None, "--workers", "-j",
                                           help="Worker processes (default: all cores)."),
     junit: Optional[Path] = typer.Option(None, "--junit", help="Also write a JUnit XML report."),
 ) -> None:
@@ -207,7 +234,8 @@ def batch(
     bar = ProgressBar() if sys.stderr.isatty() else None
     on_done = bar.update if bar else (lambda o: typer.echo(outcome_line(o)))
     try:
-        with _bad_input_exits():
+        with _bad_input_exits(out):
+            workers = _positive_workers(workers)
             result = build_library(source, out, workers=workers, on_done=on_done,
                                    on_planned=bar.planned if bar else None)
             if junit is not None:
@@ -239,7 +267,7 @@ def _batch_summary(result, show_problems: bool) -> None:
 @app.command()
 def verify(
     manifest: Path = typer.Argument(..., help="OUT/manifest.json written by `cellbuild batch`."),
-    workers: Optional[int] = typer.Option(None, "--workers", "-j", min=1,
+    workers: Optional[int] = typer.Option(None, "--workers", "-j",
                                           help="Worker processes (default: all cores)."),
 ) -> None:
     """Rebuild every manifest entry in a temporary folder and compare bytes.
@@ -254,6 +282,7 @@ def verify(
     bar = ProgressBar(label="rebuilding") if sys.stderr.isatty() else None
     try:
         with _bad_input_exits():
+            workers = _positive_workers(workers)
             result = verify_manifest(manifest, workers=workers,
                                      on_planned=bar.planned if bar else None,
                                      on_done=bar.update if bar else None)
@@ -348,19 +377,79 @@ def _inspect_options(types, expect, cutoff, potential_cutoff, plot) -> Optional[
     return symbols
 
 
-def main() -> None:
-    """Console-script entry point: no traceback reaches the user without --debug."""
+def main(argv: Optional[List[str]] = None) -> None:
+    """Console-script entry point: no traceback reaches the user without --debug.
+
+    Bad input exits 2 with one sentence; an unexpected exception is a bug and
+    exits 3 with one sentence asking for a report; SIGTERM (sent by `timeout`
+    and job schedulers) ends the run like Ctrl-C, removing staged files.
+    """
+    import signal
+
+    click = _click()
+
+    def _terminate(signum, frame):
+        raise SystemExit(EXIT_TERMINATED)
+
+    signal.signal(signal.SIGTERM, _terminate)
     try:
-        app()
-    except KeyboardInterrupt:
-        typer.echo("interrupted; no partial files were left", err=True)
-        sys.exit(130)
-    except Exception as exc:  # a bug, not bad input: still one sentence, no traceback
+        code = app(args=argv, standalone_mode=False)
+    except (KeyboardInterrupt, typer.Abort):
+        _say("interrupted; no partial files were left")
+        code = EXIT_INTERRUPTED
+    except SystemExit as exc:
+        if exc.code == EXIT_TERMINATED:
+            _say("terminated; no partial files were left")
+        if type(sys.stdout).__name__ == "PacifyFlushWrapper":
+            # click met a closed stdout (EPIPE), swapped in this wrapper and exits 1,
+            # which would read as "a check failed"
+            sys.exit(_broken_pipe())
+        raise
+    except BrokenPipeError:
+        code = _broken_pipe()
+    except click.exceptions.NoArgsIsHelpError as exc:
+        exc.show()  # `cellbuild` alone, or a command without arguments: the help text
+        code = EXIT_BAD_INPUT
+    except click.exceptions.ClickException as exc:
+        # usage errors (unknown option, missing argument, wrong type): one sentence
+        command = exc.ctx.command_path if getattr(exc, "ctx", None) else "cellbuild"
+        _say(f"error: {exc.format_message().rstrip('.')}; see `{command} --help`.")
+        code = EXIT_BAD_INPUT
+    except Exception as exc:  # a bug, not bad input: one sentence, its own exit code
         if _State.debug:
             raise
-        typer.echo(f"error: unexpected {type(exc).__name__}: {exc}; rerun with --debug and "
-                   "report it", err=True)
-        sys.exit(EXIT_BAD_INPUT)
+        text = " ".join(str(exc).split())[:300]
+        _say(f"error: unexpected {type(exc).__name__} inside cellbuild ({text}); this is a bug: "
+             "please report it with the command and its input, and rerun with --debug for "
+             "the traceback.")
+        code = EXIT_BUG
+    sys.exit(code if isinstance(code, int) else EXIT_OK)
+
+
+def _click():
+    """The click package that Typer runs on (recent Typer releases vendor their own)."""
+    try:
+        from typer import _click as click  # Typer >= 0.25 ships click inside itself
+    except ImportError:
+        import click
+    return click
+
+
+def _say(text: str) -> None:
+    """One line on standard error, even when standard error has gone away."""
+    with contextlib.suppress(OSError):
+        typer.echo(text, err=True)
+
+
+def _broken_pipe() -> int:
+    """The reader of our output went away: stop quietly, as `cat` and `grep` do."""
+    import os
+
+    # Python would report the failed flush of stdout at exit: point it at devnull
+    with contextlib.suppress(OSError, ValueError):
+        devnull = os.open(os.devnull, os.O_WRONLY)
+        os.dup2(devnull, sys.stdout.fileno())
+    return EXIT_BROKEN_PIPE
 
 
 if __name__ == "__main__":

@@ -90,4 +90,19 @@ def planned_counts(plan: Plan) -> list[tuple[Request, int]]:
                 hint=f"at most {left:,} can be placed", file=plan.recipe.source)
         used[req.on] = used.get(req.on, 0) + n
         out.append((req, n))
+    _refuse_empty(plan, out)
     return out
+
+
+def _refuse_empty(plan: Plan, counts: list[tuple[Request, int]]) -> None:
+    """A structure needs at least one atom: refuse requests that remove every atom."""
+    removed = sum(n for req, n in counts if req.kind == "vacancy")
+    added = sum(n for req, n in counts if req.kind == "interstitial")
+    if plan.n_sites - removed + added < 1:
+        req = next(req for req, _ in counts if req.kind == "vacancy")
+        what = "count" if req.amount.count is not None else "fraction"
+        raise InputError(
+            "would remove every atom of the structure", key=f"{req.key}.{what}",
+            value=req.amount.count if what == "count" else req.amount.fraction,
+            hint=f"leave at least one of the {plan.n_sites:,} sites occupied",
+            file=plan.recipe.source)

@@ -63,7 +63,8 @@ def build(recipe: Recipe, *, strict: bool = False, progress: Progress | None = N
     perfect = build_perfect(plan)
     note("defects")
     structure, placements = place_defects(plan, perfect)
-    return Built(plan, structure, placements)
+    # one atom order for every format, so defect atom ids hold in each file
+    return Built(plan, structure.grouped_by_species(), placements)
 
 
 def planned_paths(recipe: Recipe, out_dir: str | os.PathLike) -> list[Path]:
@@ -195,7 +196,8 @@ def make_report(built: Built, result: Audit, outputs: dict[str, WrittenFile],
 
 
 def defect_sites(built: Built) -> dict:
-    """Where each defect went: grid site ids, atom ids (1-based, file order) and,
+    """Where each defect went: grid site ids, atom ids (1-based, in the atom order
+    that every output file shares) and,
     for vacancies and interstitials, Cartesian positions in Angstrom."""
     from .build import site_positions
 

@@ -93,6 +93,19 @@ class Structure:
             coords_are_cartesian=True,
         )
 
+    def grouped_by_species(self) -> "Structure":
+        """The same atoms reordered by species code (stable within a species).
+
+        Every writer keeps this order, so 1-based atom ids mean the same atom in
+        every output format (POSCAR needs atoms grouped by species). Returns
+        ``self`` when the atoms are already grouped (O(N) check).
+        """
+        if np.all(self.species[1:] >= self.species[:-1]):
+            return self
+        order = np.argsort(self.species, kind="stable")
+        return Structure(self.cell, self.positions[order], self.species[order], self.symbols,
+                         self.site[order])
+
     @classmethod
     def from_ase(cls, atoms) -> "Structure":
         """Build from an ``ase.Atoms``; species codes follow first appearance."""
