@@ -60,6 +60,18 @@ class Plan:
     warnings: tuple[str, ...] = ()
 
     @property
+    def size_note(self) -> str | None:
+        """How far the lattice-site count is from ``size.atoms``, when that was asked
+        and not met exactly."""
+        target = self.recipe.size.atoms
+        if target is None or target == self.n_sites:
+            return None
+        diff = self.n_sites - target
+        return (f"size.atoms asked {target:,}; the nearest compact supercell "
+                f"{'x'.join(map(str, self.repeat))} has {self.n_sites:,} sites "
+                f"({diff:+,}, {100.0 * diff / target:+.1f} %)")
+
+    @property
     def n_cells(self) -> int:
         return math.prod(self.repeat)
 
@@ -104,11 +116,7 @@ def choose_repeat(recipe: Recipe, a: float) -> tuple[int, int, int]:
         return size.repeat
     z = LATTICES[recipe.crystal.lattice].n_basis
     if size.atoms is not None:
-        n = max(1, round((size.atoms / z) ** (1.0 / 3.0)))
-        # nearest count among n-1, n, n+1; ties go to the larger supercell
-        candidates = [m for m in (n - 1, n, n + 1) if m >= 1]
-        best = min(candidates, key=lambda m: (abs(z * m**3 - size.atoms), -m))
-        return (best, best, best)
+        return compact_repeat(size.atoms, z)
     assert size.min_length is not None
     reps = []
     for length in size.min_length:
@@ -117,6 +125,35 @@ def choose_repeat(recipe: Recipe, a: float) -> tuple[int, int, int]:
             n += 1
         reps.append(n)
     return tuple(reps)  # type: ignore[return-value]
+
+
+def compact_repeat(target: int, per_cell: int) -> tuple[int, int, int]:
+    """Cells per axis whose atom count is nearest ``target``, over compact repeats.
+
+    Compact: n1 <= n2 <= n3 <= 2 * n1, so no edge is more than twice another.
+    Ties go to the more nearly cubic repeat, then to the larger supercell.
+    Vectorised over (n1, n2); n3 is the floor or ceiling of the cells still needed.
+    """
+    import numpy as np
+
+    cells = target / per_cell
+    edge = cells ** (1.0 / 3.0)
+    if edge > 1000:  # beyond any machine's memory: the nearest cube, refused later
+        n = int(round(edge))
+        return n, n, n
+    # n1 <= edge <= n3 <= 2 n1 bounds n1 to [edge / 2, edge]: about edge^2 / 2 pairs
+    n1 = np.arange(max(1, int(edge / 2)), int(edge) + 2, dtype=np.int64)
+    n2 = n1[:, None] + np.arange(0, int(n1[-1]) + 1, dtype=np.int64)[None, :]
+    n1 = np.broadcast_to(n1[:, None], n2.shape)
+    keep = n2 <= 2 * n1
+    n1, n2 = n1[keep], n2[keep]
+    base = np.floor(cells / (n1 * n2)).astype(np.int64)
+    n1, n2 = np.concatenate([n1, n1]), np.concatenate([n2, n2])
+    n3 = np.clip(np.concatenate([base, base + 1]), n2, 2 * n1)
+    count = n1 * n2 * n3 * per_cell
+    # nearest count, then most nearly cubic (n3/n1), then larger, then lexicographic
+    best = np.lexsort((n3, n2, n1, -count, n3 / n1, np.abs(count - target)))[0]
+    return int(n1[best]), int(n2[best]), int(n3[best])
 
 
 def resolve(recipe: Recipe, *, strict: bool = False) -> Plan:
@@ -131,7 +168,7 @@ def resolve(recipe: Recipe, *, strict: bool = False) -> Plan:
             f"({MIN_CONSTANT} to {MAX_CONSTANT:g})", key=_constant_key(recipe),
             value=_constant_value(recipe, a), hint="check the units (Angstrom, g/cm^3)",
             file=recipe.source)
-    warnings = []
+    warnings = list(_spacing_warnings(recipe, a))
     if not 1.0 <= a <= 20.0:
         message = f"lattice constant {a:.4g} Angstrom is outside the plausible range 1 to 20"
         if strict:
@@ -160,6 +197,24 @@ def resolve(recipe: Recipe, *, strict: bool = False) -> Plan:
                          hint="choose a smaller size", file=recipe.source)
     return Plan(recipe, a, source, repeat, n_sites, n_atoms, box, memory, files,
                 tuple(warnings))
+
+
+def _spacing_warnings(recipe: Recipe, a: float) -> tuple[str, ...]:
+    """Refuse a lattice constant whose nearest-neighbour distance no solid has
+    (a value in nm or pm, say); with ``checks.physical_spacing: false``, warn instead."""
+    from .spacing import judge
+
+    element = recipe.crystal.element
+    verdict = judge(nearest_neighbour_distance(recipe.crystal.lattice, a), element, element)
+    if verdict.plausible:
+        return ()
+    if not getattr(recipe.checks, "physical_spacing", True):  # FIXME once Checks has it
+        return (f"the lattice constant {verdict.describe()}; built anyway because "
+                "checks.physical_spacing is false",)
+    raise InputError(verdict.describe(), key=_constant_key(recipe),
+                     value=_constant_value(recipe, a),
+                     hint="give lengths in Angstrom, or set checks.physical_spacing: false "
+                          "to build it on purpose", file=recipe.source)
 
 
 def check_disk_space(plan: Plan, out_dir: str | os.PathLike) -> None:

@@ -150,6 +150,8 @@ def _summary(result) -> None:
     typer.echo(f"{r['name']}: {r['n_atoms']:,} atoms, {r['lattice']} {r['element']} "
                f"a = {r['lattice_constant']:.5f} A, box {box} A; "
                f"{passed}/{len(r['checks'])} checks passed ({verdict})")
+    if r.get("size_note"):
+        typer.echo(f"  note: {r['size_note']}")
     for w in r.get("warnings", []):
         typer.echo(f"  warning: {w}")
     for c in r["checks"]:
@@ -188,6 +190,8 @@ def _plan_text(p: dict) -> str:
         f"  box               {' x '.join(f'{x:.4f}' for x in p['box'])} A",
         f"  atoms             {p['n_atoms']:,} ({p['n_sites']:,} lattice sites)",
     ]
+    if p["size_note"]:
+        lines.append(f"  note: {p['size_note']}")
     for d in p["defects"]:
         lines.append(f"  {d['kind']:17s} {d['placed']:,} {d['element']} on {d['on']} ({d['key']})")
     lines.append(f"  memory (est.)     {p['estimated_memory_bytes'] / 1e6:,.1f} MB")

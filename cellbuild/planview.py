@@ -31,6 +31,8 @@ def describe(plan: Plan) -> dict:
         "box": list(plan.box),
         "n_sites": plan.n_sites,
         "n_atoms": n_atoms,
+        "target_atoms": recipe.size.atoms,
+        "size_note": plan.size_note,
         "defects": defects,
         "outputs": list(recipe.outputs),
         "estimated_memory_bytes": plan.estimated_memory,

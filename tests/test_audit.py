@@ -86,3 +86,44 @@ def test_missing_atom_fails_atoms_per_cell_and_composition():
                                   site=s.site[keep])
     failed, _ = _failed(b, thinned)
     assert {"atoms_per_cell", "composition"} <= failed
+
+
+def test_every_check_is_computed_from_the_built_structure():
+    """No check is a fact of the ideal crystal alone: each named check of a perfect
+    structure fails on some tampering below (this test lists them)."""
+    b = _built()
+    names = {c.name for c in audit(b.plan, b.structure, b.placements).checks}
+    assert names == {"atoms_per_cell", "composition", "cell_lengths", "coordination",
+                     "min_distance", "space_group"}
+
+
+def test_displaced_atom_lowers_the_space_group_of_a_perfect_structure():
+    # spglib (reference library): a perfect fcc supercell is Fm-3m (225, International
+    # Tables); one atom pushed 0.05 A off its site breaks the cubic symmetry
+    b = _built()
+    assert audit(b.plan, b.structure, b.placements).values["space_group"]["number"] == 225
+    positions = b.structure.positions.copy()
+    positions[5] += [0.05, 0.02, 0.0]
+    failed, result = _failed(b, dataclasses.replace(b.structure, positions=positions))
+    assert "space_group" in failed
+    assert result.values["space_group"]["number"] != 225
+
+
+def test_defect_supercell_reports_its_own_space_group():
+    # one substitution in a 3x3x3 fcc supercell: the site symmetry of the substituted
+    # atom is m-3m, but translations are lost, so spglib finds Pm-3m (221) rather
+    # than Fm-3m (225) (International Tables; a primitive cubic lattice of impurities)
+    b = _built(substitutions=[{"element": "Ni", "count": 1}])
+    result = audit(b.plan, b.structure, b.placements)
+    assert result.values["space_group"]["number"] == 221
+    assert result.values["ideal_crystal"]["space_group"]["number"] == 225
+    assert "space_group" not in {c.name for c in result.checks}  # reported, not checked
+
+
+def test_large_structures_say_why_the_space_group_is_missing():
+    from cellbuild.audit import MAX_SPACEGROUP_ATOMS, structure_spacegroup
+
+    b = build(parse_recipe(recipe_dict("Cu", "fcc", 3.615, (8, 8, 8))))
+    assert b.structure.n_atoms > MAX_SPACEGROUP_ATOMS
+    found = structure_spacegroup(b.structure)
+    assert found["number"] is None and "not computed" in found["note"]

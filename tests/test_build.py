@@ -72,23 +72,59 @@ def test_reference_constant_refused_when_table_lattice_differs():
 
 
 @pytest.mark.parametrize("lattice,target,expected", [
-    ("fcc", 500, 5),      # 4*5^3 = 500 exactly
-    ("fcc", 4000, 10),
-    ("fcc", 1372, 7),     # 4*7^3 = 1372
-    ("bcc", 2 * 6**3 + 1, 6),
-    ("sc", 100, 5),       # 64 vs 125: 125 is nearer (|100-125| = 25 < 36)
-    ("sc", 1, 1),
+    # atoms per conventional cell: sc 1, bcc 2, fcc 4 (textbook geometry); the
+    # repeats are the factorisations of target / atoms-per-cell (arithmetic)
+    ("fcc", 500, (5, 5, 5)),      # 4*5^3 = 500 exactly
+    ("fcc", 64, (2, 2, 4)),       # 4*2*2*4 = 64; a cube gives 32 or 108
+    ("fcc", 4000, (10, 10, 10)),
+    ("fcc", 1372, (7, 7, 7)),     # 4*7^3 = 1372
+    ("bcc", 2 * 6**3 + 1, (6, 6, 6)),
+    ("sc", 100, (4, 5, 5)),       # 100 exactly
+    ("sc", 1, (1, 1, 1)),
+    ("fcc", 2, (1, 1, 1)),        # fewer atoms than one cell: the single cell
 ])
-def test_atoms_size_picks_nearest_cube(lattice, target, expected):
+def test_atoms_size_picks_nearest_compact_repeat(lattice, target, expected):
     r = _recipe(element="Cu", lattice=lattice, a=3.0, size={"atoms": target})
-    assert choose_repeat(r, 3.0) == (expected,) * 3
+    assert choose_repeat(r, 3.0) == expected
 
 
-def test_atoms_size_tie_goes_to_larger():
-    # bcc (2 atoms per cell): 1 cell holds 2 atoms, 2x2x2 cells hold 16; a target
-    # of 9 is 7 from each, a tie, which goes to the larger supercell
+@pytest.mark.parametrize("target", [7, 64, 97, 250, 1001, 5000, 12345])
+@pytest.mark.parametrize("per_cell", [1, 2, 4, 8])
+def test_compact_repeat_is_nearest_among_all_compact_triples(target, per_cell):
+    # brute force over every compact triple n1 <= n2 <= n3 <= 2 n1 (arithmetic):
+    # no compact repeat comes nearer the target than the one chosen
+    from cellbuild.build import compact_repeat
+
+    n1, n2, n3 = compact_repeat(target, per_cell)
+    assert n1 <= n2 <= n3 <= 2 * n1
+    best = min(abs(a * b * c * per_cell - target)
+               for a in range(1, 40) for b in range(a, 2 * a + 1) for c in range(b, 2 * a + 1))
+    assert abs(n1 * n2 * n3 * per_cell - target) == best
+
+
+def test_atoms_size_tie_goes_to_more_cubic_then_larger():
+    # bcc (2 atoms per cell), target 9: 1x2x2 cells hold 8 atoms, 1x1x5 is not compact
+    # and 5 cells have no compact factorisation, so 8 (1 away) wins
     r = _recipe(element="Cu", lattice="bcc", a=3.0, size={"atoms": 9})
-    assert choose_repeat(r, 3.0) == (2, 2, 2)
+    assert choose_repeat(r, 3.0) == (1, 2, 2)
+    # sc, target 3: 1x1x2 (2 atoms) and 1x2x2 (4 atoms) are both 1 away and equally
+    # anisotropic (ratio 2): the tie goes to the larger
+    r = _recipe(element="Cu", lattice="sc", a=3.0, size={"atoms": 3})
+    assert choose_repeat(r, 3.0) == (1, 2, 2)
+
+
+def test_plan_says_how_far_from_the_asked_atom_count(cli, recipe_file):
+    from conftest import recipe_dict
+
+    data = recipe_dict("Cu", "fcc", 3.615, size=None)
+    data["size"] = {"atoms": 100}
+    result = cli("plan", recipe_file(data))
+    assert result.exit_code == 0
+    # 4 atoms per fcc cell: 2x3x4 = 24 cells = 96 sites is the nearest compact count
+    # (3x3x3 gives 108, 8 away; arithmetic)
+    assert "asked 100" in result.output and "96 sites" in result.output and "-4" in result.output
+    data["size"] = {"atoms": 108}
+    assert "note:" not in cli("plan", recipe_file(data)).output
 
 
 def test_min_length_smallest_n_with_n_a_at_least_length():

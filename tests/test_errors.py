@@ -122,13 +122,46 @@ def test_existing_output_folder_untouched_on_bad_input(cli, tmp_path):
 
 
 def test_implausible_constant_warns_or_fails_under_strict(cli, tmp_path):
+    # 19.5 A for Cu: nearest neighbours 13.8 A apart, beyond 3.2 x the covalent radius
+    # sum (Cordero 2008 via ase.data) only with physical_spacing off; 1 to 20 A is the
+    # plausible range of cubic lattice constants of the elements (common practice)
     path = tmp_path / "recipe.yaml"
-    path.write_text(GOOD.replace("a: 3.615", "a: 36.15"))
+    path.write_text(GOOD.replace("a: 3.615", "a: 21.5") + "checks: {physical_spacing: false}\n")
     loose = cli("make", path, "--out", tmp_path / "a")
     assert loose.exit_code == 0 and "warning" in loose.output and "plausible" in loose.output
     strict = cli("make", path, "--out", tmp_path / "b", "--strict")
-    assert strict.exit_code == 2 and "crystal.a" in strict.output and "36.15" in strict.output
+    assert strict.exit_code == 2 and "crystal.a" in strict.output and "21.5" in strict.output
     assert not (tmp_path / "b").exists()
+
+
+@pytest.mark.parametrize("a,unit", [("0.3615", "nm"), ("361.5", "pm")])
+def test_lattice_constant_in_the_wrong_unit_is_refused(cli, tmp_path, a, unit):
+    # Cu's lattice constant is 3.615 A (Kittel, from memory); given in nm or pm by
+    # mistake its nearest-neighbour distance (a / sqrt2, fcc geometry) falls outside
+    # 0.5 to 3.2 x twice Cu's covalent radius (1.32 A, Cordero 2008 via ase.data)
+    path = tmp_path / "recipe.yaml"
+    path.write_text(GOOD.replace("a: 3.615", f"a: {a}"))
+    result = cli("make", path, "--out", tmp_path / "out")
+    assert result.exit_code == 2
+    assert "crystal.a" in result.output and a in result.output and unit in result.output
+    assert len(result.output.strip().splitlines()) == 1
+    assert not (tmp_path / "out").exists()
+    allowed = tmp_path / "allowed.yaml"
+    allowed.write_text(path.read_text() + "checks: {physical_spacing: false}\n")
+    built = cli("make", allowed, "--out", tmp_path / "out2")
+    assert built.exit_code == 0 and "physical_spacing" in built.output
+
+
+def test_unit_mistake_is_an_error_entry_in_batch(cli, tmp_path):
+    lib = tmp_path / "recipes"
+    lib.mkdir()
+    (lib / "nm.yaml").write_text(GOOD.replace("a: 3.615", "a: 0.3615"))
+    result = cli("batch", lib, "--out", tmp_path / "lib", "--workers", "1")
+    assert result.exit_code == 2
+    import json
+
+    manifest = json.loads((tmp_path / "lib" / "manifest.json").read_text())
+    assert "nm" in manifest["structures"][0]["error"]
 
 
 def test_missing_recipe_file(cli, tmp_path):
