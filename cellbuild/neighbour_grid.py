@@ -1,0 +1,260 @@
+"""The grid fast path of :mod:`cellbuild.neighbours`: atoms on the sites of a
+regular M1 x M2 x M3 grid of their cell (freshly built crystals) are counted by
+adding shifted occupancy grids instead of searching pairs. Lengths in Angstrom."""
+from __future__ import annotations
+
+from dataclasses import dataclass
+
+import numpy as np
+
+from .cellgeom import (_checked_cell, _checked_positions, _times, _wrapped_fractional,
+                       perpendicular_widths)
+
+# would cost more memory than the general engine needs (2**26 = 67,108,864).
+MAX_GRID_SITES = 1 << 26
+# Offsets enumerated by the grid path; beyond this the general engine is cheaper.
+MAX_GRID_OFFSETS = 1 << 22
+# Atoms looked at to guess a grid before the O(N) verification of every atom.
+_GRID_SAMPLE = 4096
+# Largest multiple j in the guess M = j / smallest_gap (coordinates such as
+# {0, 0.4} have smallest gap 0.4 but live on the M = 5 grid, j = 2).
+_GRID_GAP_MULTIPLES = 8
+# Candidate pairs examined per chunk of centre atoms in the cell list: large
+# Grid path strategy, measured per offset on 1M-atom sc, fcc and diamond
+# grids: adding a shifted uint8 occupancy grid costs 0.1-1.3 ns per site,
+# gathering the occupancy of the atoms' shifted sites 7-9 ns per atom; so
+# shifts win unless the grid has over ~25 sites per atom.
+_SHIFT_COST_PER_SITE = 0.3
+_GATHER_COST_PER_ATOM = 8.0
+# Kepler's bound: no packing of equal spheres is denser than pi / sqrt(18), so
+
+@dataclass(frozen=True, eq=False)
+class GridSites:
+    """Where atoms sit on a regular grid of their cell (see :func:`locate_grid`).
+
+    Attributes:
+        grid: (3,) int64 divisions (M1, M2, M3) of the cell.
+        flat: (N,) int64 C-order index of each atom's grid site.
+        frac: (N, 3) wrapped fractional coordinates relative to atom 0.
+    """
+
+    grid: np.ndarray
+    flat: np.ndarray
+    frac: np.ndarray
+
+
+def locate_grid(cell, positions, tol=1e-6) -> GridSites | None:
+    """The smallest regular grid through atom 0 that holds every atom within
+    ``tol`` Angstrom, or None. Computing it once lets :func:`coordination_counts`
+    and :func:`min_distance` share the work on large structures."""
+    cell = _checked_cell(cell)
+    positions = _checked_positions(positions)
+    if len(positions) == 0:
+        return None
+    frac = _wrapped_fractional(cell, positions - positions[0])
+    located = _find_grid_sites(cell, frac, tol)
+    return None if located is None else GridSites(located[0], located[1], frac)
+
+
+def _find_grid_sites(cell: np.ndarray, frac: np.ndarray, tol: float):
+    """(grid, flat site of each atom) for the smallest grid found, or None.
+
+    A seeded sample of the atoms proposes the grid, which is cheap; only if
+    some atom is then off that grid are all atoms sorted to find the grid.
+    Any grid that holds all atoms holds the sample too, so a sample that fits
+    no grid rules the whole set out.
+    """
+    sample = frac[np.random.default_rng(0).integers(0, len(frac), _GRID_SAMPLE)]
+    for atoms in (sample, frac):
+        grid = _detect_grid(cell, atoms, tol)
+        if grid is None:
+            return None
+        flat = _grid_sites(cell, frac, grid, tol)
+        if flat is not None:
+            return grid, flat
+    return None
+
+
+def _detect_grid(cell: np.ndarray, frac: np.ndarray, tol: float) -> np.ndarray | None:
+    """Smallest grid (M1, M2, M3) of the cell that holds these atoms, or None.
+
+    ``frac`` are wrapped fractional coordinates; None when no grid of at most
+    MAX_GRID_SITES sites is found.
+    """
+    frac_tol = tol / perpendicular_widths(cell)
+    grid = np.empty(3, dtype=np.int64)
+    for axis in range(3):
+        size = _axis_grid(frac[:, axis], frac_tol[axis])
+        if size is None:
+            return None
+        grid[axis] = size
+    return grid if np.prod(grid, dtype=np.float64) <= MAX_GRID_SITES else None
+
+
+def _axis_grid(values: np.ndarray, frac_tol: float) -> int | None:
+    """Smallest M with values * M integral within M * frac_tol, from the gaps.
+
+    ``values`` are fractional coordinates in [0, 1) along one axis. Gaps up to
+    2 * frac_tol are noise within one grid plane; the smallest real gap g is
+    j / M for a small integer j.
+    """
+    v = np.sort(values)
+    gaps = np.append(np.diff(v), 1.0 - v[-1] + v[0])  # last gap wraps around
+    gaps = gaps[gaps > 2.0 * frac_tol]
+    if len(gaps) == 0:
+        return 1  # all atoms in one plane
+    smallest = float(gaps.min())
+    for multiple in range(1, _GRID_GAP_MULTIPLES + 1):
+        size = round(multiple / smallest)
+        if size > MAX_GRID_SITES:
+            return None  # only finer grids remain
+        scaled = v * size
+        if size >= 1 and np.all(np.abs(scaled - np.rint(scaled)) <= size * frac_tol):
+            return int(size)
+    return None
+
+
+def _grid_sites(cell: np.ndarray, frac: np.ndarray, grid: np.ndarray,
+                tol: float) -> np.ndarray | None:
+    """Flat index of each atom's grid site (C order), or None if one is > tol A off.
+
+    None also when the grid has more than MAX_GRID_SITES sites.
+    """
+    if np.prod(grid, dtype=np.float64) > MAX_GRID_SITES:
+        return None
+    scaled = frac * grid
+    nearest = np.rint(scaled)
+    residual = scaled - nearest  # in grid steps, per axis
+    # |residual @ step| <= sum |residual_k| |step_k|: a cheap bound that
+    # settles every atom exactly on its site; only atoms it cannot settle get
+    # the exact Cartesian distance.
+    step = cell / grid[:, None]
+    bound = _times(np.abs(residual), np.linalg.norm(step, axis=1)[:, None])[:, 0]
+    unsure = np.flatnonzero(bound > tol)
+    if len(unsure):
+        offset = _times(residual[unsure], step)
+        if np.einsum("ij,ij->i", offset, offset).max() > tol * tol:
+            return None
+    # Coordinates just below 1 round up to M: 'wrap' folds them onto site 0.
+    return np.ravel_multi_index(nearest.astype(np.int64).T, tuple(grid), mode="wrap")
+
+
+def _grid_offsets(cell: np.ndarray, grid: np.ndarray, cutoff: float) -> np.ndarray | None:
+    """Nonzero integer grid offsets d (K, 3) with |d @ (cell / M)| < cutoff.
+
+    The box of offsets searched is wide enough along each axis to cover the
+    cutoff across the perpendicular width of one grid step; offsets longer
+    than the cell wrap around it and stand for images. None if there would be
+    more than MAX_GRID_OFFSETS.
+    """
+    step = cell / grid[:, None]
+    reach = np.floor(cutoff / perpendicular_widths(step)).astype(np.int64)
+    if np.prod(2 * reach + 1, dtype=np.float64) > 8 * MAX_GRID_OFFSETS:
+        return None
+    axes = [np.arange(-k, k + 1) for k in reach]
+    box = np.stack(np.meshgrid(*axes, indexing="ij"), axis=-1).reshape(-1, 3)
+    vectors = _times(box.astype(np.float64), step)
+    inside = np.einsum("ij,ij->i", vectors, vectors) < cutoff * cutoff
+    inside &= np.any(box != 0, axis=1)
+    offsets = box[inside]
+    return offsets if len(offsets) <= MAX_GRID_OFFSETS else None
+
+
+def _count_occupied_offsets(occupancy: np.ndarray, grid: np.ndarray,
+                            offsets: np.ndarray, flat: np.ndarray) -> np.ndarray:
+    """For each atom, the occupied sites among its site + offsets (mod grid), int32.
+
+    ``occupancy`` is the flat (C order) 0/1 grid, ``flat`` the atoms' sites.
+    """
+    if len(offsets) == 0:
+        return np.zeros(len(flat), dtype=np.int32)  # cutoff shorter than any grid step
+    n_sites = int(np.prod(grid))
+    if n_sites * _SHIFT_COST_PER_SITE < len(flat) * _GATHER_COST_PER_ATOM:
+        return _count_by_shifts(occupancy.reshape(tuple(grid)), offsets, flat)
+    return _count_by_gather(occupancy, grid, offsets, flat)
+
+
+def _count_by_shifts(occupancy: np.ndarray, offsets: np.ndarray,
+                     flat: np.ndarray) -> np.ndarray:
+    """Sum of the whole occupancy grid shifted by each offset, read at the atoms.
+
+    The grid is padded periodically (several times around for long offsets),
+    so each shift is a plain strided view and no array is allocated per offset.
+    """
+    reach = np.abs(offsets).max(axis=0)
+    padded = np.pad(occupancy, [(k, k) for k in reach], mode="wrap")
+    total = np.zeros(occupancy.shape, dtype=_count_dtype(len(offsets)))
+    m0, m1, m2 = occupancy.shape
+    for d0, d1, d2 in (offsets + reach).tolist():
+        total += padded[d0:d0 + m0, d1:d1 + m1, d2:d2 + m2]
+    return np.take(total.ravel(), flat).astype(np.int32)
+
+
+def _count_by_gather(occupancy: np.ndarray, grid: np.ndarray, offsets: np.ndarray,
+                     flat: np.ndarray) -> np.ndarray:
+    """Occupancy at site + offset (mod grid) gathered for the atoms, per offset."""
+    sites = np.unravel_index(flat, tuple(grid))
+    total = np.zeros(len(flat), dtype=np.int32)
+    shifted = np.empty(len(flat), dtype=np.int64)
+    for d in offsets.tolist():
+        total += occupancy[_shifted_sites(grid, sites, d, out=shifted)]
+    return total
+
+
+def _shifted_sites(grid: np.ndarray, sites: tuple, offset, out: np.ndarray) -> np.ndarray:
+    """Flat (C-order) index of each site + ``offset`` (mod grid), written to ``out``.
+
+    ``sites`` are per-axis site indices (from ``np.unravel_index``). The index is
+    a sum of three per-axis lookup tables, which avoids a modulo over all atoms.
+    """
+    strides = (int(grid[1] * grid[2]), int(grid[2]), 1)
+    tables = [((np.arange(grid[k]) + offset[k]) % grid[k]) * strides[k] for k in range(3)]
+    np.take(tables[0], sites[0], out=out)
+    out += tables[1][sites[1]]
+    out += tables[2][sites[2]]
+    return out
+
+
+def _grid_min_distance(cell: np.ndarray, positions: np.ndarray, radius: float,
+                       tol: float = 1e-6, sites: GridSites | None = None
+                       ) -> tuple[float, int, int] | None:
+    """:func:`min_distance` for atoms on a grid, or None (off grid, shared site,
+    no pair within ``radius``).
+
+    Offsets are tried shortest first; the first one that joins two occupied
+    sites gives the closest pair, found with one gather over the atoms per
+    offset tried instead of a neighbour search.
+    """
+    sites = sites or locate_grid(cell, positions, tol)
+    if sites is None:
+        return None
+    grid, flat, frac = sites.grid, sites.flat, sites.frac
+    atom_at = np.full(int(np.prod(grid)), -1, dtype=np.int64)
+    atom_at[flat] = np.arange(len(flat))
+    if np.count_nonzero(atom_at >= 0) < len(flat):
+        return None  # two atoms share a site: the general engine reports it
+    offsets = _grid_offsets(cell, grid, radius)
+    if offsets is None or len(offsets) == 0:
+        return None
+    lengths = np.linalg.norm(_times(offsets.astype(np.float64), cell / grid[:, None]), axis=1)
+    axis_sites = np.unravel_index(flat, tuple(grid))
+    shifted = np.empty(len(flat), dtype=np.int64)
+    for k in np.argsort(lengths, kind="stable"):
+        partner = atom_at[_shifted_sites(grid, axis_sites, offsets[k].tolist(), out=shifted)]
+        hits = np.flatnonzero(partner >= 0)
+        if hits.size:
+            i, j = int(hits[0]), int(partner[hits[0]])
+            # the actual vector: the grid offset corrected by both atoms' residuals
+            step = offsets[k] / grid
+            diff = frac[j] - frac[i]
+            vector = _times((diff + np.rint(step - diff))[None, :], cell)[0]
+            return float(np.linalg.norm(vector)), min(i, j), max(i, j)
+    return None
+
+
+def _count_dtype(n_offsets: int):
+    """Narrowest unsigned type that holds counts up to n_offsets (less memory traffic)."""
+    if n_offsets < 1 << 8:
+        return np.uint8
+    return np.uint16 if n_offsets < 1 << 16 else np.int32
+
