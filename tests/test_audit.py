@@ -127,3 +127,17 @@ def test_large_structures_say_why_the_space_group_is_missing():
     assert b.structure.n_atoms > MAX_SPACEGROUP_ATOMS
     found = structure_spacegroup(b.structure)
     assert found["number"] is None and "not computed" in found["note"]
+
+
+def test_vacancy_supercell_space_group_matches_spglib_without_the_marker():
+    # spglib on the structure as it is (no vacancy marker) is the reference: the
+    # marker used for speed must not change the answer (a vacancy in a 3x3x3 fcc
+    # supercell keeps m-3m about its site: Pm-3m, 221, International Tables)
+    from cellbuild.audit import spacegroup
+
+    b = _built(vacancies={"count": 1})
+    found = audit(b.plan, b.structure, b.placements).values["space_group"]
+    assert found["number"] == spacegroup(b.structure, symprec=found["symprec"])[1] == 221
+    b = _built(vacancies={"count": 2}, substitutions=[{"element": "Ni", "count": 1}])
+    found = audit(b.plan, b.structure, b.placements).values["space_group"]
+    assert found["number"] == spacegroup(b.structure, symprec=found["symprec"])[1]
