@@ -2,6 +2,7 @@
 periodic image copies, any atoms, any cell. Lengths in Angstrom."""
 from __future__ import annotations
 
+import math
 from dataclasses import dataclass
 
 import numpy as np
@@ -18,6 +19,31 @@ _BINS_PER_ATOM = 2
 # candidates at no extra cost per column (measured: about 15% faster than 1,
 # while 3 was no better).
 _Z_SPLIT = 2
+#: Pairs a search may hold in memory: (i, j, d) of 5 million pairs are 120 MB,
+#: and sorting them takes about three times that.
+MAX_LISTED_PAIRS = 5_000_000
+#: Pairs a count (or a shortest-pair search) may visit: about 10 s on one core.
+MAX_COUNTED_PAIRS = 50_000_000
+#: Image copies of atoms the padded bins may hold (32 bytes each), at least
+#: this many, else twice the atoms.
+_MAX_IMAGE_ENTRIES = 1 << 23
+#: Candidate pairs examined to estimate the pairs of a crowded structure.
+_ESTIMATE_CANDIDATES = 1 << 21
+
+
+class PairLimitError(ValueError):
+    """A pair search would exceed its budget; nothing was allocated for it.
+
+    Attributes:
+        pairs: estimated pairs closer than ``r`` (each pair once).
+        r: the search radius, Angstrom.
+        limit: the budget that was exceeded.
+    """
+
+    def __init__(self, pairs: float, r: float, limit: int, what: str) -> None:
+        self.pairs, self.r, self.limit = pairs, r, limit
+        super().__init__(f"about {pairs:,.0f} pairs closer than {r:g} A, more than the "
+                         f"{limit:,} {what}")
 
 # --------------------------------------------------------------------------
 # General engine: cell list with image copies
@@ -64,12 +90,32 @@ def _bin_counts(cell: np.ndarray, r: float, n_atoms: int) -> np.ndarray:
     return counts
 
 
-def _build_bins(cell: np.ndarray, positions: np.ndarray, r: float) -> _Bins:
-    """Sort atoms into bins for neighbours closer than r, with image copies."""
+def uniform_pairs(cell: np.ndarray, n_atoms: int, r: float) -> float:
+    """Pairs closer than ``r`` (A) in a uniform structure of this density (images
+    included, each pair once): N * (N / V) * (4/3) pi r^3 / 2."""
+    volume = abs(float(np.linalg.det(cell)))
+    return n_atoms * (n_atoms / volume) * (4.0 / 3.0) * math.pi * r ** 3 / 2.0
+
+
+def _build_bins(cell: np.ndarray, positions: np.ndarray, r: float,
+                limit: int = MAX_COUNTED_PAIRS) -> _Bins:
+    """Sort atoms into bins for neighbours closer than r, with image copies.
+
+    PairLimitError, before anything large is allocated, when a uniform structure
+    of this density would have more than ``limit`` pairs within r, or when the
+    image copies would not fit their budget (a cell much thinner than r).
+    """
+    expected = uniform_pairs(cell, len(positions), r)
+    if expected > limit:
+        raise PairLimitError(expected, r, limit, "a neighbour search handles")
     frac = _wrapped_fractional(cell, positions)
     n_bins = _bin_counts(cell, r, len(frac))
     # Bins this many apart along an axis can still hold a pair closer than r.
     reach = np.maximum(1, np.ceil(r * n_bins / perpendicular_widths(cell))).astype(np.int64)
+    copies = len(frac) * float(np.prod((n_bins + 2 * reach) / n_bins))
+    if copies > max(_MAX_IMAGE_ENTRIES, 2 * len(frac)):
+        raise PairLimitError(expected, r, limit, "a neighbour search handles (the cell is "
+                             f"much thinner than {r:g} A: {copies:,.0f} image copies)")
     bin_of = np.minimum((frac * n_bins).astype(np.int64), n_bins - 1)
     flat_bin = np.ravel_multi_index(bin_of.T, tuple(n_bins))
     order = np.argsort(flat_bin, kind="stable")
@@ -183,14 +229,40 @@ def _candidate_ranges(bins: _Bins, centres: np.ndarray, half: bool):
     return first, last
 
 
-def _chunks(bins: _Bins, half: bool, centres: np.ndarray | None = None) -> list:
-    """Centre ranks split into chunks of about _PAIRS_PER_CHUNK candidate pairs."""
+def _chunks(bins: _Bins, half: bool, centres: np.ndarray | None = None,
+            limit: tuple[float, int, str] | None = None) -> list:
+    """Centre ranks split into chunks of about _PAIRS_PER_CHUNK candidate pairs.
+
+    ``limit`` = (r, most pairs, what): when the candidates exceed the limit,
+    the pairs closer than r are estimated from a sample of centres, and
+    PairLimitError is raised if the estimate exceeds it too.
+    """
     if centres is None:
         centres = np.arange(bins.n_atoms)
-    candidates = np.cumsum(_candidate_counts(bins, centres, half))
+    per_centre = _candidate_counts(bins, centres, half)
+    candidates = np.cumsum(per_centre)
+    if limit is not None and candidates[-1] > limit[1]:
+        r, most, what = limit
+        pairs = _estimated_pairs(bins, r * r, len(centres), half)
+        if pairs > most:
+            raise PairLimitError(pairs, r, most, what)
     n_chunks = max(1, int(candidates[-1] // _PAIRS_PER_CHUNK))
     cuts = np.searchsorted(candidates, np.arange(1, n_chunks) * _PAIRS_PER_CHUNK)
     return [c for c in np.split(centres, cuts) if len(c)]
+
+
+def _estimated_pairs(bins: _Bins, r2: float, n_centres: int, half: bool) -> float:
+    """Pairs closer than sqrt(r2) A from ``n_centres`` centres (each once when
+    ``half``), estimated from a seeded sample of centres with about
+    _ESTIMATE_CANDIDATES candidates in all."""
+    drawn = np.random.default_rng(0).permutation(bins.n_atoms)
+    cost = np.cumsum(_candidate_counts(bins, drawn, half=False))
+    m = max(1, int(np.searchsorted(cost, _ESTIMATE_CANDIDATES)))
+    sample = np.sort(drawn[:m])
+    found = 0
+    for centres in _chunks(bins, half=False, centres=sample):
+        found += len(_pairs_in_chunk(bins, centres, r2, half=False)[0])
+    return found / m * n_centres * (0.5 if half else 1.0)
 
 
 def _candidate_counts(bins: _Bins, centres: np.ndarray, half: bool) -> np.ndarray:
@@ -260,11 +332,20 @@ def _add_counts(counts: np.ndarray, ranks: np.ndarray) -> None:
     counts[low:high + 1] += np.bincount(ranks - low, minlength=high - low + 1)
 
 
-def _collect_pairs(bins: _Bins, chunks: list, r2: float, limit: int | None):
-    """Half-stencil pairs (rank i, rank j, d2) of the chunks, the shortest ``limit``."""
+def _collect_pairs(bins: _Bins, chunks: list, r2: float, limit: int | None,
+                   most: int = MAX_LISTED_PAIRS):
+    """Half-stencil pairs (rank i, rank j, d2) of the chunks, the shortest ``limit``.
+
+    PairLimitError once more than ``most`` pairs are held (the estimate that let
+    the search start was low).
+    """
     kept_i, kept_j, kept_d2 = [np.zeros(0, np.int64)], [np.zeros(0, np.int64)], [np.zeros(0)]
+    held = 0
     for centres in chunks:
         centre, entry, d2 = _pairs_in_chunk(bins, centres, r2, half=True)
+        held += len(d2)
+        if limit is None and held > most:
+            raise PairLimitError(held, float(np.sqrt(r2)), most, "a pair list holds")
         kept_i.append(centre)
         kept_j.append(bins.entry_atom[entry])
         kept_d2.append(d2)
@@ -285,9 +366,12 @@ def _shortest(i: np.ndarray, j: np.ndarray, d2: np.ndarray, limit: int | None):
 
 def _collect_distances(bins: _Bins, chunks: list, r2: float, half: bool) -> np.ndarray:
     """Squared distances of the pairs of the chunks (half or full stencil)."""
-    parts = [np.zeros(0)]
+    parts, held = [np.zeros(0)], 0
     for centres in chunks:
         parts.append(_pairs_in_chunk(bins, centres, r2, half=half)[2])
+        held += len(parts[-1])
+        if held > MAX_LISTED_PAIRS:
+            raise PairLimitError(held, float(np.sqrt(r2)), MAX_LISTED_PAIRS, "a pair list holds")
     return np.concatenate(parts)
 
 

@@ -12,8 +12,15 @@ from .cellgeom import (_checked_cell, _checked_positions, _times, _wrapped_fract
 
 # would cost more memory than the general engine needs (2**26 = 67,108,864).
 MAX_GRID_SITES = 1 << 26
-# Offsets enumerated by the grid path; beyond this the general engine is cheaper.
-MAX_GRID_OFFSETS = 1 << 22
+# Offsets enumerated by the grid path; beyond this the general engine is cheaper
+# (the box of candidate offsets, 8x this, stays at 12 MB).
+MAX_GRID_OFFSETS = 1 << 16
+# Grid sites per atom beyond which the grid path is not used. Built crystals
+# need at most 32 (bcc with tetrahedral interstitial sites: a 4 x 4 x 4 grid per
+# 2 atoms); an atom moved by 1e-4 A makes a grid of 10^5 sites per atom, whose
+# per-offset cost (up to 2^26 sites shifted, or ~10^6 offsets gathered) took
+# minutes where the general engine takes milliseconds.
+MAX_GRID_SITES_PER_ATOM = 64
 # Atoms looked at to guess a grid before the O(N) verification of every atom.
 _GRID_SAMPLE = 4096
 # Largest multiple j in the guess M = j / smallest_gap (coordinates such as
@@ -59,6 +66,9 @@ def locate_grid(cell, positions, tol=1e-6) -> GridSites | None:
 def _find_grid_sites(cell: np.ndarray, frac: np.ndarray, tol: float):
     """(grid, flat site of each atom) for the smallest grid found, or None.
 
+    None also for a grid of more than MAX_GRID_SITES_PER_ATOM sites per atom:
+    such a fine grid is slower than the general engine.
+
     A seeded sample of the atoms proposes the grid, which is cheap; only if
     some atom is then off that grid are all atoms sorted to find the grid.
     Any grid that holds all atoms holds the sample too, so a sample that fits
@@ -67,7 +77,7 @@ def _find_grid_sites(cell: np.ndarray, frac: np.ndarray, tol: float):
     sample = frac[np.random.default_rng(0).integers(0, len(frac), _GRID_SAMPLE)]
     for atoms in (sample, frac):
         grid = _detect_grid(cell, atoms, tol)
-        if grid is None:
+        if grid is None or np.prod(grid, dtype=np.float64) > MAX_GRID_SITES_PER_ATOM * len(frac):
             return None
         flat = _grid_sites(cell, frac, grid, tol)
         if flat is not None:

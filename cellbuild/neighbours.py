@@ -50,20 +50,25 @@ re-measures all of these.
 from __future__ import annotations
 
 import math
+from dataclasses import dataclass
 
 import numpy as np
 
-from .cell_list import (_build_bins, _chunks, _collect_distances, _collect_pairs,
-                        _count_chunks, _in_threads, _shortest)
+from .cell_list import (MAX_COUNTED_PAIRS, MAX_LISTED_PAIRS, PairLimitError, _build_bins,
+                        _candidate_counts, _chunks, _collect_distances, _collect_pairs,
+                        _count_chunks, _estimated_pairs, _in_threads, _pairs_in_chunk,
+                        _shortest, uniform_pairs)
 from .cellgeom import (_checked_cell, _checked_positions, _checked_radius, _thread_count,
                        _wrapped_fractional, perpendicular_widths)
 from .neighbour_grid import (MAX_GRID_OFFSETS, MAX_GRID_SITES, GridSites,
                              _count_occupied_offsets, _find_grid_sites, _grid_min_distance,
                              _grid_offsets, _grid_sites, locate_grid)
 
-__all__ = ["GridSites", "MAX_GRID_OFFSETS", "MAX_GRID_SITES", "close_pairs",
+__all__ = ["GridSites", "MAX_COUNTED_PAIRS", "MAX_GRID_OFFSETS", "MAX_GRID_SITES",
+           "MAX_LISTED_PAIRS", "PairLimitError", "PairSample", "close_pairs",
            "coordination_counts", "general_counts", "grid_counts", "locate_grid",
-           "min_distance", "pair_distances", "perpendicular_widths", "sampled_centre_count"]
+           "min_distance", "nearest_neighbours", "pair_distances", "pair_sample",
+           "perpendicular_widths", "sampled_centre_count", "uniform_pairs"]
 
 # N atoms in volume V always have a pair (or an atom and an image) closer than
 # (6 V / (N sqrt(18)))**(1/3) = 1.1225 (V / N)**(1/3).
@@ -105,9 +110,11 @@ def general_counts(cell, positions, cutoff, *, workers=2) -> np.ndarray:
     if len(positions) == 0:
         return np.zeros(0, dtype=np.int32)
     bins = _build_bins(cell, positions, cutoff)
+    chunks = _chunks(bins, half=True,
+                     limit=(cutoff, MAX_COUNTED_PAIRS, "a neighbour count handles"))
     per_thread = _in_threads(
-        lambda chunks: _count_chunks(bins, chunks, cutoff * cutoff),
-        _chunks(bins, half=True), _thread_count(workers))
+        lambda group: _count_chunks(bins, group, cutoff * cutoff),
+        chunks, _thread_count(workers))
     sorted_counts = np.sum(per_thread, axis=0)
     counts = np.empty(bins.n_atoms, dtype=np.int32)
     counts[bins.order] = sorted_counts
@@ -191,7 +198,7 @@ def min_distance(cell, positions, *, workers=2,
         radius *= 2.0
 
 
-def close_pairs(cell, positions, r, *, workers=2, limit=None
+def close_pairs(cell, positions, r, *, workers=2, limit=None, max_pairs=MAX_LISTED_PAIRS
                 ) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
     """All pairs closer than ``r`` (Angstrom), sorted by distance.
 
@@ -202,6 +209,11 @@ def close_pairs(cell, positions, r, *, workers=2, limit=None
         image at a different lattice shift is a different pair.
         With ``limit``, only the ``limit`` shortest pairs are kept (memory
         stays O(limit + chunk) however many pairs there are).
+
+    Raises:
+        PairLimitError: (a ValueError) before the search, when there are about
+            more than ``max_pairs`` pairs closer than r (without ``limit``), or
+            more than MAX_COUNTED_PAIRS to visit (with it).
     """
     cell = _checked_cell(cell)
     positions = _checked_positions(positions)
@@ -211,10 +223,13 @@ def close_pairs(cell, positions, r, *, workers=2, limit=None
     empty = (np.zeros(0, np.int64), np.zeros(0, np.int64), np.zeros(0, np.float64))
     if len(positions) == 0 or limit == 0:
         return empty
-    bins = _build_bins(cell, positions, r)
+    budget = (MAX_COUNTED_PAIRS, "a shortest-pair search handles") if limit is not None \
+        else (int(max_pairs), "a pair list holds")
+    bins = _build_bins(cell, positions, r, limit=budget[0])
+    chunks = _chunks(bins, half=True, limit=(r, *budget))
     per_thread = _in_threads(
-        lambda chunks: _collect_pairs(bins, chunks, r * r, limit),
-        _chunks(bins, half=True), _thread_count(workers))
+        lambda group: _collect_pairs(bins, group, r * r, limit, most=budget[0]),
+        chunks, _thread_count(workers))
     i, j, d2 = (np.concatenate(parts) for parts in zip(*per_thread))
     i, j, d2 = _shortest(i, j, d2, limit)
     i, j = bins.order[i], bins.order[j]
@@ -223,44 +238,125 @@ def close_pairs(cell, positions, r, *, workers=2, limit=None
     return i[rank], j[rank], np.sqrt(d2[rank])
 
 
-def pair_distances(cell, positions, r_max, *, workers=2, max_pairs=None) -> np.ndarray:
-    """Distances (Angstrom) of all pairs closer than ``r_max``, ascending, (P,).
+def nearest_neighbours(cell, positions, r, *, centres=None, workers=2
+                       ) -> tuple[np.ndarray, np.ndarray]:
+    """Nearest neighbour (atom or image) of each centre atom, within ``r`` (A).
 
-    Each pair (atom-atom or atom-image) is counted once, so a histogram of the
-    result times 2 / N gives the average neighbours per atom in each bin.
+    Args:
+        centres: atom indices to look at (default: every atom).
 
-    Sampling: if ``max_pairs`` is given and the expected number of pairs
-    (see :func:`sampled_centre_count`) exceeds it, ``m`` centre atoms are drawn
-    without replacement with ``numpy.random.default_rng(0)`` and the result
-    holds the distances from each of them to all its neighbours (a pair whose
-    two ends were both drawn appears twice). The histogram divided by ``m``
-    then estimates the neighbours per atom; ``m`` is
-    ``sampled_centre_count(cell, N, r_max, max_pairs)``.
+    Returns:
+        ``(distance, partner)`` per centre: float64 Angstrom (inf when nothing
+        is closer than r) and the neighbour's atom index (-1 then).
+    """
+    cell = _checked_cell(cell)
+    positions = _checked_positions(positions)
+    r = _checked_radius(r, "r")
+    n = len(positions)
+    centres = np.arange(n) if centres is None else np.asarray(centres, dtype=np.int64)
+    best = np.full(len(centres), np.inf)
+    partner = np.full(len(centres), -1, dtype=np.int64)
+    if n == 0 or len(centres) == 0:
+        return best, partner
+    bins = _build_bins(cell, positions, r)
+    ranks = bins.rank[centres]
+    order = np.argsort(ranks, kind="stable")
+    chunks = _chunks(bins, half=False, centres=ranks[order],
+                     limit=(r, MAX_COUNTED_PAIRS, "a nearest-neighbour search handles"))
+
+    def task(group):
+        found = []
+        for chunk in group:
+            centre, entry, d2 = _pairs_in_chunk(bins, chunk, r * r, half=False)
+            first = np.lexsort((d2, centre))  # each centre's shortest first
+            keep = first[np.r_[True, centre[first][1:] != centre[first][:-1]]]
+            found.append((centre[keep], bins.entry_atom[entry[keep]], d2[keep]))
+        return found
+
+    by_rank = np.full(bins.n_atoms, np.inf)
+    partner_rank = np.full(bins.n_atoms, -1, dtype=np.int64)
+    for found in _in_threads(task, chunks, _thread_count(workers)):
+        for centre, other, d2 in found:
+            by_rank[centre] = d2
+            partner_rank[centre] = other
+    best = np.sqrt(by_rank[ranks])
+    got = partner_rank[ranks] >= 0
+    partner[got] = bins.order[partner_rank[ranks][got]]
+    return best, partner
+
+
+@dataclass(frozen=True)
+class PairSample:
+    """Pair distances from :func:`pair_sample`.
+
+    Attributes:
+        distances: ascending distances, Angstrom.
+        centres: centre atoms they were collected from; equal to the number
+            of atoms when every pair is listed once.
+    """
+
+    distances: np.ndarray
+    centres: int
+
+
+def pair_sample(cell, positions, r_max, *, max_pairs=None, workers=2) -> PairSample:
+    """Distances (Angstrom) of the pairs closer than ``r_max``, sampled when many.
+
+    Without sampling each pair (atom-atom or atom-image) is listed once, so a
+    histogram of the distances times 2 / N gives the average neighbours per
+    atom in each bin.
+
+    Sampling: if ``max_pairs`` is given and there are more pairs than that,
+    ``m`` centre atoms are drawn without replacement with
+    ``numpy.random.default_rng(0)`` and the result holds the distances from
+    each of them to all its neighbours (a pair whose two ends were both drawn
+    appears twice); the histogram divided by ``m`` then estimates the
+    neighbours per atom. ``m`` is :func:`sampled_centre_count` for a uniform
+    structure; where atoms crowd together (many atoms at one place), it comes
+    from the pairs actually counted on a sample of centres instead, so the
+    result stays near ``max_pairs`` distances however the atoms are placed.
+
+    Raises:
+        PairLimitError: without ``max_pairs``, when there are more than
+            MAX_LISTED_PAIRS pairs.
     """
     cell = _checked_cell(cell)
     positions = _checked_positions(positions)
     r_max = _checked_radius(r_max, "r_max")
     n = len(positions)
     if n == 0:
-        return np.zeros(0, dtype=np.float64)
-    bins = _build_bins(cell, positions, r_max)
-    n_centres = n if max_pairs is None else sampled_centre_count(cell, n, r_max, max_pairs)
-    half = n_centres >= n
+        return PairSample(np.zeros(0, dtype=np.float64), 0)
+    cap = MAX_LISTED_PAIRS if max_pairs is None else int(max_pairs)
+    bins = _build_bins(cell, positions, r_max,
+                       limit=MAX_LISTED_PAIRS if max_pairs is None else math.inf)
+    m = n if max_pairs is None else sampled_centre_count(cell, n, r_max, max_pairs)
+    if m >= n and int(_candidate_counts(bins, np.arange(n), True).sum()) > cap:
+        pairs = _estimated_pairs(bins, r_max * r_max, n, half=True)
+        if pairs > cap:
+            if max_pairs is None:
+                raise PairLimitError(pairs, r_max, cap, "a pair list holds")
+            m = int(min(n, max(1, math.ceil(cap / (2.0 * pairs / n)))))
+    half = m >= n
     if half:
         chunks = _chunks(bins, half=True)
     else:
-        drawn = np.random.default_rng(0).choice(n, size=n_centres, replace=False)
+        drawn = np.random.default_rng(0).choice(n, size=m, replace=False)
         chunks = _chunks(bins, half=False, centres=np.sort(bins.rank[drawn]))
     per_thread = _in_threads(
         lambda group: _collect_distances(bins, group, r_max * r_max, half),
         chunks, _thread_count(workers))
     d2 = np.concatenate(per_thread)
     d2.sort()
-    return np.sqrt(d2)
+    return PairSample(np.sqrt(d2), m)
+
+
+def pair_distances(cell, positions, r_max, *, workers=2, max_pairs=None) -> np.ndarray:
+    """The distances of :func:`pair_sample` (Angstrom, ascending)."""
+    return pair_sample(cell, positions, r_max, max_pairs=max_pairs, workers=workers).distances
 
 
 def sampled_centre_count(cell, n_atoms, r_max, max_pairs) -> int:
-    """Centre atoms :func:`pair_distances` samples for ``max_pairs``.
+    """Centre atoms :func:`pair_sample` samples for ``max_pairs`` in a uniform structure.
 
     The expected pairs are N * c / 2 with c = (N / V) * (4/3) pi r_max**3, the
     neighbours of an atom in a uniform structure. If they fit in
