@@ -69,11 +69,18 @@ def _bad_input_exits(out: Path | None = None):
         raise _fail(_os_error(exc, out)) from None
 
 
-def _positive_workers(workers: Optional[int]) -> Optional[int]:
-    if workers is not None and workers < 1:
-        raise InputError("must be at least 1", key="--workers", value=workers,
+def _positive_workers(workers: Optional[str]) -> Optional[int]:
+    """``--workers`` as a whole number of at least 1 (None: every core)."""
+    if workers is None:
+        return None
+    try:
+        count = int(workers)
+    except ValueError:
+        count = 0
+    if count < 1 or str(count) != workers.strip():
+        raise InputError("must be a whole number of at least 1", key="--workers", value=workers,
                          hint="leave it out to use every core")
-    return workers
+    return count
 
 
 @app.callback()
@@ -218,7 +225,7 @@ def batch(
     source: Path = typer.Argument(..., metavar="DIR",
                                   help="Folder of recipes, searched recursively for *.yaml and *.yml."),
     out: Path = typer.Option(..., "--out", "-o", help="Library folder; gets OUT/manifest.json."),
-    workers: Optional[int] = typer.Option(None, "--workers", "-j",
+    workers: Optional[str] = typer.Option(None, "--workers", "-j", metavar="N",
                                           help="Worker processes (default: all cores)."),
     junit: Optional[Path] = typer.Option(None, "--junit", help="Also write a JUnit XML report."),
 ) -> None:
@@ -271,7 +278,7 @@ def _batch_summary(result, show_problems: bool) -> None:
 @app.command()
 def verify(
     manifest: Path = typer.Argument(..., help="OUT/manifest.json written by `cellbuild batch`."),
-    workers: Optional[int] = typer.Option(None, "--workers", "-j",
+    workers: Optional[str] = typer.Option(None, "--workers", "-j", metavar="N",
                                           help="Worker processes (default: all cores)."),
 ) -> None:
     """Rebuild every manifest entry in a temporary folder and compare bytes.
@@ -397,7 +404,7 @@ def main(argv: Optional[List[str]] = None) -> None:
 
     signal.signal(signal.SIGTERM, _terminate)
     try:
-        code = app(args=argv, standalone_mode=False)
+        code = app(args=argv, prog_name="cellbuild", standalone_mode=False)
     except (KeyboardInterrupt, typer.Abort):
         _say("interrupted; no partial files were left")
         code = EXIT_INTERRUPTED
