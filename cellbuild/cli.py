@@ -426,6 +426,12 @@ def main(argv: Optional[List[str]] = None) -> None:
         command = exc.ctx.command_path if getattr(exc, "ctx", None) else "cellbuild"
         _say(f"error: {exc.format_message().rstrip('.')}; see `{command} --help`.")
         code = EXIT_BAD_INPUT
+    except MemoryError:
+        # not a bug: an input that asks for more memory than this machine has and that
+        # no earlier size check caught (readers and planners refuse most such inputs)
+        _say("error: the input needs more memory than this machine has; use a smaller "
+             "structure or file.")
+        code = EXIT_BAD_INPUT
     except Exception as exc:  # a bug, not bad input: one sentence, its own exit code
         if _State.debug:
             raise
