@@ -344,8 +344,10 @@ def inspect_files(
         try:
             result = inspect_file(path, types=symbols, cutoff=cutoff, expect=expect,
                                   potential_cutoff=potential_cutoff, plot=png)
-        except (InputError, OSError) as exc:
-            if isinstance(exc, OSError):
+        except (InputError, OSError, MemoryError) as exc:
+            if isinstance(exc, MemoryError):  # the other files are still inspected
+                exc = InputError("needs more memory than this machine has", file=str(path))
+            elif isinstance(exc, OSError):
                 exc = InputError(f"cannot write the plot ({exc.strerror or exc})",
                                  key="--plot", value=str(png))
             _fail(exc)  # prints the sentence; the other files are still inspected
