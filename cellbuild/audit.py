@@ -13,15 +13,14 @@ import copy
 import math
 from dataclasses import dataclass, field
 from functools import lru_cache
-from itertools import product
 
 import numpy as np
 
 from . import neighbours
 from .build import (AVOGADRO, ANGSTROM3_TO_CM3, Plan, replicate, site_positions,
                     standard_atomic_weight)
+from .crystal import Crystal
 from .defects import Placement
-from .lattices import LATTICES, shells, site_table
 from .structure import Structure
 
 #: Pairs listed in the report when closer than the threshold (more are counted).
@@ -55,42 +54,21 @@ class Audit:
 # ----------------------------------------------------------------------------- topology
 
 
-@lru_cache(maxsize=None)
-def neighbour_offsets(lattice: str) -> tuple[tuple[int, tuple[int, int, int], int], ...]:
-    """Grid-site neighbour table within the audit cutoff, from the basis geometry.
-
-    Returns entries ``(s, (di, dj, dk), t)``: site ``t`` of the cell displaced by
-    ``(di, dj, dk)`` lies within the cutoff (midway between the first two shells
-    of the lattice) of site ``s``. Sites include the interstitial sites.
-    """
-    frac, _, _ = site_table(lattice)
-    cutoff = shells(lattice).audit_cutoff
-    span = math.ceil(cutoff) + 1
-    cells = np.array(list(product(range(-span, span + 1), repeat=3)))
-    entries = []
-    for s, origin in enumerate(frac):
-        # (cells, sites) distances from site s to every site of the nearby cells
-        d = np.linalg.norm(cells[:, None, :] + frac[None, :, :] - origin, axis=2)
-        ci, t = np.nonzero((d < cutoff) & (d > 1e-9))
-        entries += [(s, tuple(int(x) for x in cells[c]), int(u)) for c, u in zip(ci, t)]
-    return tuple(entries)
-
-
-def expected_coordination(structure: Structure, lattice: str,
+def expected_coordination(structure: Structure, crystal: Crystal,
                           repeat: tuple[int, int, int]) -> np.ndarray:
     """Per-atom neighbour count implied by which grid sites are occupied.
 
     Uses array shifts of the occupancy grid: cost linear in the number of cells
     times the number of neighbour offsets; no per-atom Python loop.
     """
-    n_grid = len(site_table(lattice)[0])
+    n_grid = crystal.n_grid
     shape = (*repeat, n_grid)
     occupied = np.zeros(math.prod(shape), dtype=bool)
     occupied[structure.site] = True
     occupied = occupied.reshape(shape)
     present = occupied.reshape(-1, n_grid).any(axis=0)
     expected = np.zeros(shape, dtype=np.int16)
-    for s, (di, dj, dk), t in neighbour_offsets(lattice):
+    for s, (di, dj, dk), t in crystal.offsets:
         if present[s] and present[t]:
             # expected[i, j, k, s] += occupied[i + di, j + dj, k + dk, t]
             expected[..., s] += np.roll(occupied[..., t], (-di, -dj, -dk), axis=(0, 1, 2))
@@ -103,14 +81,12 @@ def expected_coordination(structure: Structure, lattice: str,
 def audit(plan: Plan, structure: Structure, placements: list[Placement],
           *, workers: int = 2) -> Audit:
     """Run every check on ``structure``, built from ``plan`` with ``placements``."""
-    recipe = plan.recipe
-    lattice, a = recipe.crystal.lattice, plan.lattice_constant
-    geometry = shells(lattice)
-    cutoff = geometry.audit_cutoff * a
+    recipe, crystal = plan.recipe, plan.crystal
+    cutoff = crystal.audit_cutoff
     checks: list[Check] = []
     values: dict = {}
 
-    values["ideal_crystal"] = copy.deepcopy(_ideal_crystal(lattice, a, recipe.crystal.element))
+    values["ideal_crystal"] = copy.deepcopy(_ideal_crystal(crystal))
     checks.append(_atoms_per_cell_check(plan, structure, placements))
 
     composition = structure.composition()
@@ -131,7 +107,7 @@ def audit(plan: Plan, structure: Structure, placements: list[Placement],
     sites = neighbours.locate_grid(structure.cell, structure.positions)  # shared by two checks
     counted = neighbours.coordination_counts(structure.cell, structure.positions, cutoff,
                                              workers=workers, sites=sites)
-    expected = expected_coordination(structure, lattice, plan.repeat)
+    expected = expected_coordination(structure, crystal, plan.repeat)
     mismatched = int(np.count_nonzero(counted != expected))
     values["coordination"] = _coordination_values(structure, counted, cutoff, mismatched)
     checks.append(Check(
@@ -139,9 +115,8 @@ def audit(plan: Plan, structure: Structure, placements: list[Placement],
         f"{mismatched} of {structure.n_atoms} atoms have a neighbour count (within "
         f"{cutoff:.4f} Angstrom, from coordinates) that differs from the lattice topology"))
 
-    checks.append(_distance_check(recipe, structure, geometry.nearest * a, values, workers,
-                                  sites))
-    vacant = [site_positions(lattice, a, plan.repeat, p.site_ids)
+    checks.append(_distance_check(recipe, structure, crystal.nearest, values, workers, sites))
+    vacant = [site_positions(crystal, plan.repeat, p.site_ids)
               for p in placements if p.kind == "vacancy"]
     values["space_group"] = structure_spacegroup(
         structure, np.concatenate(vacant) if vacant else None)
@@ -152,7 +127,7 @@ def audit(plan: Plan, structure: Structure, placements: list[Placement],
 
 
 @lru_cache(maxsize=64)
-def _ideal_crystal(lattice: str, a: float, element: str) -> dict:
+def _ideal_crystal(crystal: Crystal) -> dict:
     """Facts of the ideal crystal, measured on one perfect conventional cell built
     by the same code: atoms per cell, nearest-neighbour distance (Angstrom),
     coordination, packing fraction and space group (spglib).
@@ -162,10 +137,9 @@ def _ideal_crystal(lattice: str, a: float, element: str) -> dict:
     structures of one crystal measures it once per process. Callers copy the
     returned dict before changing it.
     """
-    cell = replicate(lattice, a, (1, 1, 1), symbols=(element,))
-    geometry = shells(lattice)
+    cell = replicate(crystal, (1, 1, 1), symbols=tuple(dict.fromkeys(crystal.elements)))
     d_nn, _, _ = neighbours.min_distance(cell.cell, cell.positions, workers=1)
-    counts = neighbours.coordination_counts(cell.cell, cell.positions, geometry.audit_cutoff * a,
+    counts = neighbours.coordination_counts(cell.cell, cell.positions, crystal.audit_cutoff,
                                             workers=1)
     packing = cell.n_atoms * (4.0 / 3.0) * math.pi * (d_nn / 2.0) ** 3 / cell.volume
     symbol, number = spacegroup(cell)
@@ -175,8 +149,8 @@ def _ideal_crystal(lattice: str, a: float, element: str) -> dict:
         "coordination": int(counts.max()),
         "packing_fraction": packing,
         "space_group": {"symbol": symbol, "number": number},
-        "expected_space_group": {"symbol": LATTICES[lattice].space_group[0],
-                                 "number": LATTICES[lattice].space_group[1]},
+        "expected_space_group": {"symbol": crystal.space_group[0],
+                                 "number": crystal.space_group[1]},
     }
 
 
@@ -246,19 +220,16 @@ def _atoms_per_cell_check(plan: Plan, structure: Structure, placements) -> Check
     Atoms are assigned to cells from their coordinates; interstitials (known from
     the placements) are left out.
     """
-    a = plan.lattice_constant
-    n_grid = len(site_table(plan.recipe.crystal.lattice)[0])
-    n_basis = LATTICES[plan.recipe.crystal.lattice].n_basis
-    lattice_atoms = structure.positions[structure.site % n_grid < n_basis]
+    crystal = plan.crystal
+    lattice_atoms = structure.positions[structure.site % crystal.n_grid < crystal.n_basis]
     vacant = np.concatenate([p.site_ids for p in placements if p.kind == "vacancy"] or
                             [np.empty(0, np.int64)])
-    points = np.concatenate([lattice_atoms, site_positions(
-        plan.recipe.crystal.lattice, a, plan.repeat, vacant)])
-    idx = np.floor(points / a + 1e-9).astype(np.int64) % np.array(plan.repeat)
+    points = np.concatenate([lattice_atoms, site_positions(crystal, plan.repeat, vacant)])
+    idx = np.floor(crystal.to_fractional(points) + 1e-9).astype(np.int64) % np.array(plan.repeat)
     n1, n2, n3 = plan.repeat
     cell = (idx[:, 0] * n2 + idx[:, 1]) * n3 + idx[:, 2]
     per_cell = np.bincount(cell, minlength=plan.n_cells)
-    z = LATTICES[plan.recipe.crystal.lattice].n_basis
+    z = crystal.n_basis
     low, high = int(per_cell.min()), int(per_cell.max())
     return Check("atoms_per_cell", low == high == z,
                  f"{low}..{high} lattice sites per conventional cell from coordinates "
@@ -283,7 +254,7 @@ def _formula(composition: dict[str, int]) -> str:
 
 
 def _cell_check(plan: Plan, cell: np.ndarray) -> Check:
-    expected = np.diag(np.array(plan.repeat, dtype=float) * plan.lattice_constant)
+    expected = plan.crystal.supercell(plan.repeat)
     ok = bool(np.allclose(cell, expected, rtol=0, atol=1e-9 * plan.lattice_constant))
     lengths = ", ".join(f"{x:.6f}" for x in np.linalg.norm(cell, axis=1))
     return Check("cell_lengths", ok,

@@ -17,7 +17,9 @@ from pathlib import Path
 import numpy as np
 
 from .errors import InputError
-from .lattices import LATTICES, shells, site_table, touching_radius_factor
+from .crystal import Crystal, resolve_crystal
+from .defect_plan import count_defects
+from .lattices import LATTICES, shells, touching_radius_factor
 from .recipe import Recipe
 from .structure import Structure
 
@@ -49,7 +51,7 @@ class Plan:
     """
 
     recipe: Recipe
-    lattice_constant: float
+    crystal: Crystal
     lattice_constant_source: str
     repeat: tuple[int, int, int]
     n_sites: int
@@ -57,7 +59,13 @@ class Plan:
     box: tuple[float, float, float]
     estimated_memory: int
     estimated_files: dict[str, int]
+    defect_counts: tuple = ()  # (defect_plan.Request, count) pairs in placement order
     warnings: tuple[str, ...] = ()
+
+    @property
+    def lattice_constant(self) -> float:
+        """The conventional cell's ``a``, Angstrom."""
+        return self.crystal.a
 
     @property
     def size_note(self) -> str | None:
@@ -109,19 +117,20 @@ def _reference_constant(recipe: Recipe) -> float:
     return float(state["a"])
 
 
-def choose_repeat(recipe: Recipe, a: float) -> tuple[int, int, int]:
-    """Cells per axis from ``size``: as given, nearest atom count, or minimum length."""
+def choose_repeat(recipe: Recipe, crystal: Crystal) -> tuple[int, int, int]:
+    """Cells per axis from ``size``: as given, nearest atom count, or minimum length
+    (per axis, the smallest n whose n cell-vector lengths reach it)."""
     size = recipe.size
     if size.repeat is not None:
         return size.repeat
-    z = LATTICES[recipe.crystal.lattice].n_basis
     if size.atoms is not None:
-        return compact_repeat(size.atoms, z)
+        return compact_repeat(size.atoms, crystal.n_basis)
     assert size.min_length is not None
     reps = []
-    for length in size.min_length:
-        n = max(1, math.ceil(length / a - 1e-12))
-        while n * a < length:  # guard the rounding of the division
+    for length, edge in zip(size.min_length, np.linalg.norm(crystal.cell, axis=1)):
+        edge = float(edge)
+        n = max(1, math.ceil(length / edge - 1e-12))
+        while n * edge < length:  # guard the rounding of the division
             n += 1
         reps.append(n)
     return tuple(reps)  # type: ignore[return-value]
@@ -177,10 +186,10 @@ def resolve(recipe: Recipe, *, strict: bool = False) -> Plan:
                              key=key, value=_constant_value(recipe, a),
                              hint="check the units (Angstrom, g/cm^3)", file=recipe.source)
         warnings.append(message)
-    repeat = choose_repeat(recipe, a)
-    lat = LATTICES[recipe.crystal.lattice]
-    n_sites = lat.n_basis * math.prod(repeat)  # Python ints: absurd sizes must not overflow
-    n_atoms = n_sites  # defects adjust this in cellbuild.defects.plan_counts
+    crystal = resolve_crystal(recipe.crystal.lattice, a, (("A", recipe.crystal.element),))
+    repeat = choose_repeat(recipe, crystal)
+    n_sites = crystal.n_basis * math.prod(repeat)  # Python ints: absurd sizes must not overflow
+    n_atoms = n_sites  # before defects; see defect_counts
     memory = BYTES_PER_ATOM * n_sites
     files = {k: FILE_BYTES_PER_ATOM[k] * n_sites for k in recipe.outputs}
     available = _physical_memory()
@@ -190,13 +199,16 @@ def resolve(recipe: Recipe, *, strict: bool = False) -> Plan:
             f"more than this machine's {_human(available)}",
             key=f"size.{_size_key(recipe)}", value=_size_value(recipe),
             hint="choose a smaller size", file=recipe.source)
-    box = tuple(float(n * a) for n in repeat)
+    box = tuple(float(x) for x in np.linalg.norm(crystal.supercell(repeat), axis=1))
     if max(box) > MAX_BOX:
         raise InputError(f"gives a box of {max(box):.4g} Angstrom, longer than {MAX_BOX:g}",
                          key=f"size.{_size_key(recipe)}", value=_size_value(recipe),
                          hint="choose a smaller size", file=recipe.source)
-    return Plan(recipe, a, source, repeat, n_sites, n_atoms, box, memory, files,
-                tuple(warnings))
+    counts = count_defects(recipe, crystal, math.prod(repeat))  # refuses impossible requests
+    n_atoms += sum(n if req.kind == "interstitial" else -n
+                   for req, n in counts if req.kind != "substitution")
+    return Plan(recipe, crystal, source, repeat, n_sites, n_atoms, box, memory, files,
+                counts, tuple(warnings))
 
 
 def _spacing_warnings(recipe: Recipe, a: float) -> tuple[str, ...]:
@@ -236,54 +248,52 @@ def check_disk_space(plan: Plan, out_dir: str | os.PathLike) -> None:
 
 
 def build_perfect(plan: Plan) -> Structure:
-    """The perfect supercell: every lattice-basis site occupied by the host element."""
+    """The perfect supercell: every lattice-basis site occupied by its sublattice's element."""
     symbols = plan.recipe.elements()
-    return replicate(plan.recipe.crystal.lattice, plan.lattice_constant, plan.repeat,
-                     symbols=symbols, code=symbols.index(plan.recipe.crystal.element))
+    return replicate(plan.crystal, plan.repeat, symbols=symbols)
 
 
-def replicate(lattice: str, a: float, repeat: tuple[int, int, int],
-              symbols: tuple[str, ...], code: int = 0) -> Structure:
-    """Replicate the conventional cell of ``lattice`` (side ``a``, Angstrom) ``repeat`` times.
+def replicate(crystal: Crystal, repeat: tuple[int, int, int],
+              symbols: tuple[str, ...]) -> Structure:
+    """Replicate the conventional cell of ``crystal`` ``repeat`` times.
 
-    Atoms come out in site-id order; all carry species ``code`` (``symbols[code]``).
+    Atoms come out in site-id order, each basis site carrying its element's
+    species code (an index into ``symbols``).
     """
-    n_grid = len(site_table(lattice)[0])
-    basis = LATTICES[lattice].basis_array()
-    n_basis = len(basis)
+    n_basis, n_grid = crystal.n_basis, crystal.n_grid
     n1, n2, n3 = repeat
-    # Fill each coordinate column in place by broadcasting (cell index along
-    # one axis + basis offset): no per-atom temporaries beyond the output.
+    # Fill each fractional column in place by broadcasting (cell index along one
+    # axis + basis offset), then scale into Angstrom: no per-atom temporaries
+    # beyond the output.
     positions = np.empty((n1, n2, n3, n_basis, 3), dtype=np.float64)
     for axis, n in enumerate(repeat):
         shape = [1, 1, 1, 1]
         shape[axis] = n
         corner = np.arange(n, dtype=np.float64).reshape(shape)
-        np.multiply(corner + basis[:, axis], a, out=positions[..., axis])
+        np.add(corner, crystal.basis[:, axis], out=positions[..., axis])
     positions = positions.reshape(-1, 3)
+    crystal.to_cartesian(positions, out=positions)
     n_cells = n1 * n2 * n3
     site = (np.arange(n_cells, dtype=np.int64)[:, None] * n_grid
             + np.arange(n_basis, dtype=np.int64)[None, :]).ravel()
-    n = n_cells * n_basis
+    codes = np.array([symbols.index(e) for e in crystal.elements], dtype=np.int32)
     return Structure(
-        cell=np.diag([n1 * a, n2 * a, n3 * a]).astype(np.float64),
+        cell=crystal.supercell(repeat),
         positions=positions,
-        species=np.full(n, code, dtype=np.int32),
+        species=np.tile(codes, n_cells),
         symbols=symbols,
         site=site,
     )
 
 
-def site_positions(lattice: str, a: float, repeat: tuple[int, int, int],
+def site_positions(crystal: Crystal, repeat: tuple[int, int, int],
                    site_ids: np.ndarray) -> np.ndarray:
     """Cartesian positions (Angstrom) of grid sites given by id (see module docstring)."""
-    frac, _, _ = site_table(lattice)
-    n_per_cell = len(frac)
-    cell, s = np.divmod(np.asarray(site_ids, dtype=np.int64), n_per_cell)
+    cell, s = np.divmod(np.asarray(site_ids, dtype=np.int64), crystal.n_grid)
     _, n2, n3 = repeat
     i, rest = np.divmod(cell, n2 * n3)
     j, k = np.divmod(rest, n3)
-    return (np.stack([i, j, k], axis=1) + frac[s]) * a
+    return crystal.to_cartesian(np.stack([i, j, k], axis=1) + crystal.site_frac[s])
 
 
 def nearest_neighbour_distance(lattice: str, a: float) -> float:

@@ -100,7 +100,6 @@ def make(
 
     from .pipeline import build, check_outputs_free, make as make_one
     from .build import resolve
-    from .defect_plan import planned_counts
 
     with _bad_input_exits(out):
         loaded = _load_points(recipes)
@@ -110,7 +109,7 @@ def make(
             raise InputError("is used by more than one recipe", key="name", value=dup,
                              hint="give each recipe its own name")
         for r in loaded:  # refuse every bad recipe before writing anything
-            planned_counts(resolve(r, strict=strict))
+            resolve(r, strict=strict)
         check_outputs_free(loaded, out, force)
         if len(loaded) > 1:
             # placement can still refuse (min_separation): place every recipe's

@@ -8,10 +8,14 @@ from __future__ import annotations
 import math
 from dataclasses import dataclass
 
-from .build import Plan
+from typing import TYPE_CHECKING
+
 from .errors import InputError
-from .lattices import LATTICES
 from .recipe import Amount, Recipe
+
+if TYPE_CHECKING:  # build imports this module to resolve the plan
+    from .build import Plan
+    from .crystal import Crystal
 
 
 @dataclass(frozen=True)
@@ -59,27 +63,35 @@ def asked(amount: Amount) -> dict:
     return {"count": amount.count} if amount.count is not None else {"fraction": amount.fraction}
 
 
-def _pool_sizes(plan: Plan) -> dict[str, int]:
+def _pool_sizes(crystal: Crystal, n_cells: int) -> dict[str, int]:
     """Sites available to each request target before any defect is placed."""
-    lat = LATTICES[plan.recipe.crystal.lattice]
-    sizes = {plan.recipe.crystal.element: plan.n_sites}
-    for kind, sites in lat.interstitials.items():
-        sizes[kind] = len(sites) * plan.n_cells
+    sizes: dict[str, int] = {}
+    for element in crystal.elements:  # lattice sites, by the element on them
+        sizes[element] = sizes.get(element, 0) + n_cells
+    for kind in crystal.interstitial_kinds:
+        sizes[kind] = crystal.site_kind.count(kind) * n_cells
     return sizes
 
 
 def planned_counts(plan: Plan) -> list[tuple[Request, int]]:
-    """Each request with the number of defects it will place; refuses impossible requests."""
-    pools = _pool_sizes(plan)
+    """Each request of the plan with the number of defects it will place."""
+    return list(plan.defect_counts)
+
+
+def count_defects(recipe: Recipe, crystal: Crystal,
+                  n_cells: int) -> tuple[tuple[Request, int], ...]:
+    """Each request with the number of defects it will place, in placement order;
+    refuses impossible requests (called once, by :func:`cellbuild.build.resolve`)."""
+    pools = _pool_sizes(crystal, n_cells)
     used: dict[str, int] = {}
     out = []
-    for req in requests(plan.recipe):
+    for req in requests(recipe):
         if req.on not in pools:
             raise InputError(
                 f"`{req.on}` has no sites in the perfect crystal",
                 key=f"{req.key}.on", value=req.on,
-                hint=f"sites can be taken from {plan.recipe.crystal.element}",
-                file=plan.recipe.source)
+                hint=f"sites can be taken from {recipe.crystal.element}",
+                file=recipe.source)
         n = requested_count(req.amount, pools[req.on])
         left = pools[req.on] - used.get(req.on, 0)
         if n > left:
@@ -87,22 +99,22 @@ def planned_counts(plan: Plan) -> list[tuple[Request, int]]:
             raise InputError(
                 f"asks for {n:,} sites but only {left:,} {req.on} sites are left",
                 key=f"{req.key}.{what}", value=req.amount.count if what == "count" else req.amount.fraction,
-                hint=f"at most {left:,} can be placed", file=plan.recipe.source)
+                hint=f"at most {left:,} can be placed", file=recipe.source)
         used[req.on] = used.get(req.on, 0) + n
         out.append((req, n))
-    _refuse_empty(plan, out)
-    return out
+    _refuse_empty(recipe, crystal.n_basis * n_cells, out)
+    return tuple(out)
 
 
-def _refuse_empty(plan: Plan, counts: list[tuple[Request, int]]) -> None:
+def _refuse_empty(recipe: Recipe, n_sites: int, counts: list[tuple[Request, int]]) -> None:
     """A structure needs at least one atom: refuse requests that remove every atom."""
     removed = sum(n for req, n in counts if req.kind == "vacancy")
     added = sum(n for req, n in counts if req.kind == "interstitial")
-    if plan.n_sites - removed + added < 1:
+    if n_sites - removed + added < 1:
         req = next(req for req, _ in counts if req.kind == "vacancy")
         what = "count" if req.amount.count is not None else "fraction"
         raise InputError(
             "would remove every atom of the structure", key=f"{req.key}.{what}",
             value=req.amount.count if what == "count" else req.amount.fraction,
-            hint=f"leave at least one of the {plan.n_sites:,} sites occupied",
-            file=plan.recipe.source)
+            hint=f"leave at least one of the {n_sites:,} sites occupied",
+            file=recipe.source)

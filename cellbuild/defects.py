@@ -15,7 +15,6 @@ import numpy as np
 from .build import Plan, site_positions
 from .defect_plan import Request, asked, planned_counts
 from .errors import InputError
-from .lattices import LATTICES, site_table
 from .structure import Structure
 
 
@@ -66,8 +65,7 @@ def place_defects(plan: Plan, perfect: Structure) -> tuple[Structure, list[Place
 
 def apply(plan: Plan, perfect: Structure, placements: list[Placement]) -> Structure:
     """The structure with ``placements`` applied to the perfect crystal ``perfect``."""
-    n_grid = len(site_table(plan.recipe.crystal.lattice)[0])
-    n_basis = LATTICES[plan.recipe.crystal.lattice].n_basis
+    n_grid, n_basis = plan.crystal.n_grid, plan.crystal.n_basis
     symbols = perfect.symbols
     species = perfect.species.copy()
     keep = np.ones(perfect.n_atoms, dtype=bool)
@@ -90,8 +88,7 @@ def apply(plan: Plan, perfect: Structure, placements: list[Placement]) -> Struct
         extra = np.concatenate(new_sites)
         order = np.argsort(extra, kind="stable")
         extra = extra[order]
-        positions = np.concatenate([positions, site_positions(
-            plan.recipe.crystal.lattice, plan.lattice_constant, plan.repeat, extra)])
+        positions = np.concatenate([positions, site_positions(plan.crystal, plan.repeat, extra)])
         species = np.concatenate([species, np.concatenate(new_species)[order]])
         site = np.concatenate([site, extra])
     return Structure(perfect.cell, positions, species, symbols, site)
@@ -104,19 +101,20 @@ class _Picker:
     def __init__(self, plan: Plan, rng: np.random.Generator) -> None:
         self.plan = plan
         self.rng = rng
-        self.lattice = plan.recipe.crystal.lattice
-        self.frac, self.kinds, self.starts = site_table(self.lattice)
+        self.crystal = plan.crystal
         self.taken: dict[str, np.ndarray] = {}  # per target: mask over its pool
         self.separation = plan.recipe.defects.min_separation
         self.accepted = np.empty((0, 3))
 
     def _pool(self, on: str) -> np.ndarray:
         """All grid site ids of ``on`` (the host element or an interstitial kind)."""
-        n_grid = len(self.frac)
-        kind = "lattice" if on == self.plan.recipe.crystal.element else on
-        local = np.flatnonzero(np.array(self.kinds) == kind)
+        crystal = self.crystal
+        if on in crystal.interstitial_kinds:
+            local = np.flatnonzero(np.array(crystal.site_kind) == on)
+        else:  # an element: the lattice sites it occupies in the perfect crystal
+            local = np.flatnonzero(np.array(crystal.elements) == on)
         cells = np.arange(self.plan.n_cells, dtype=np.int64)
-        return (cells[:, None] * n_grid + local[None, :]).ravel()
+        return (cells[:, None] * crystal.n_grid + local[None, :]).ravel()
 
     def pick(self, req: Request, n: int) -> np.ndarray:
         """``n`` distinct free sites of ``req.on``, drawn with the shared generator."""
@@ -155,8 +153,7 @@ class _Picker:
             take = max(64, 2 * (n - placed))
             batch = np.concatenate([deferred, order[cursor:cursor + take]])
             cursor += take
-            pos = site_positions(self.lattice, self.plan.lattice_constant, self.plan.repeat,
-                                 pool[batch]) % box
+            pos = site_positions(self.crystal, self.plan.repeat, pool[batch]) % box
             ok = np.ones(batch.size, dtype=bool)
             if self.accepted.size:
                 d, _ = cKDTree(self.accepted, boxsize=box).query(pos, distance_upper_bound=r)

@@ -35,10 +35,23 @@ class Lattice:
     basis: tuple[tuple[float, float, float], ...]
     interstitials: dict[str, tuple[tuple[float, float, float], ...]]
     space_group: tuple[str, int]
+    sublattices: tuple[str, ...] | None = None
+    cell: tuple[tuple[float, float, float], ...] = ((1.0, 0.0, 0.0), (0.0, 1.0, 0.0),
+                                                    (0.0, 0.0, 1.0))
+
+    def __post_init__(self) -> None:
+        if self.sublattices is None:  # one species: every basis site on sublattice A
+            object.__setattr__(self, "sublattices", ("A",) * len(self.basis))
+        if len(self.sublattices) != len(self.basis):
+            raise ValueError(f"{self.name}: one sublattice label per basis site")
 
     @property
     def n_basis(self) -> int:
         return len(self.basis)
+
+    def cartesian(self, frac) -> tuple[float, float, float]:
+        """Fractional coordinates to Cartesian, in units of ``a`` (pure Python)."""
+        return tuple(sum(frac[k] * self.cell[k][j] for k in range(3)) for j in range(3))
 
     def basis_array(self):
         """The basis as a (n_basis, 3) float64 array."""
@@ -140,11 +153,12 @@ def shells(name: str, n_shells: int = 4) -> Shells:
     conventional cells; every basis atom of these lattices sees the same shells,
     which is verified here rather than assumed.
     """
-    basis = LATTICES[name].basis
-    images = [(i + x, j + y, k + z)
-              for i, j, k in product(range(-2, 3), repeat=3) for x, y, z in basis]
+    lat = LATTICES[name]
+    # distances through the cell metric, so non-cubic cells measure right
+    images = [lat.cartesian((i + x, j + y, k + z))
+              for i, j, k in product(range(-2, 3), repeat=3) for x, y, z in lat.basis]
     per_atom = []
-    for origin in basis:
+    for origin in (lat.cartesian(b) for b in lat.basis):
         d = sorted(r for r in (math.dist(origin, p) for p in images) if r > 1e-9)
         # group equal distances (to 1e-9 a), keep the exact value of each group
         radii: list[float] = []
@@ -171,7 +185,15 @@ def touching_radius_factor(name: str) -> float:
 def packing_fraction(name: str) -> float:
     """Fraction of the cell volume filled by touching spheres on the basis sites."""
     r = touching_radius_factor(name)
-    return LATTICES[name].n_basis * (4.0 / 3.0) * math.pi * r**3
+    lat = LATTICES[name]
+    return lat.n_basis * (4.0 / 3.0) * math.pi * r**3 / abs(_det3(lat.cell))
+
+
+def _det3(m) -> float:
+    """Determinant of a 3x3 matrix given as nested tuples (pure Python)."""
+    return (m[0][0] * (m[1][1] * m[2][2] - m[1][2] * m[2][1])
+            - m[0][1] * (m[1][0] * m[2][2] - m[1][2] * m[2][0])
+            + m[0][2] * (m[1][0] * m[2][1] - m[1][1] * m[2][0]))
 
 
 def site_table(name: str):

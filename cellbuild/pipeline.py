@@ -19,7 +19,6 @@ import numpy as np
 from . import __version__
 from .audit import Audit, audit
 from .build import Plan, build_perfect, check_disk_space, resolve
-from .defect_plan import planned_counts
 from .defects import Placement, place_defects
 from .errors import InputError
 from .fileio import StagedFiles
@@ -58,7 +57,6 @@ def build(recipe: Recipe, *, strict: bool = False, progress: Progress | None = N
     """Resolve, build the perfect supercell and place the defects (no files)."""
     note = progress or (lambda phase: None)
     plan = resolve(recipe, strict=strict)
-    planned_counts(plan)  # refuse impossible defect requests before allocating
     note("build")
     perfect = build_perfect(plan)
     note("defects")
@@ -209,8 +207,7 @@ def defect_sites(built: Built) -> dict:
             idx = order[np.searchsorted(structure.site, p.site_ids, sorter=order)]
             entry["atom_ids"] = (idx + 1).tolist()
         if p.kind != "substitution":
-            pos = site_positions(plan.recipe.crystal.lattice, plan.lattice_constant,
-                                 plan.repeat, p.site_ids)
+            pos = site_positions(plan.crystal, plan.repeat, p.site_ids)
             entry["positions"] = np.round(pos, 10).tolist()
         entries.append(entry)
     return {"name": plan.recipe.name, "seed": plan.recipe.seed,

@@ -4,22 +4,14 @@ from __future__ import annotations
 from pathlib import Path
 
 from .build import Plan, resolve
-from .defect_plan import planned_counts
 
 
 def describe(plan: Plan) -> dict:
     """JSON-ready description of a plan: sizes, counts and estimates (bytes)."""
     recipe = plan.recipe
-    counts = planned_counts(plan)
-    n_atoms = plan.n_sites
-    defects = []
-    for req, n in counts:
-        if req.kind == "vacancy":
-            n_atoms -= n
-        elif req.kind == "interstitial":
-            n_atoms += n
-        defects.append({"kind": req.kind, "element": req.element, "on": req.on,
-                        "key": req.key, "placed": n})
+    defects = [{"kind": req.kind, "element": req.element, "on": req.on, "key": req.key,
+                "placed": n} for req, n in plan.defect_counts]
+    n_atoms = plan.n_atoms
     scale = n_atoms / max(plan.n_sites, 1)
     return {
         "name": recipe.name,

@@ -7,6 +7,7 @@ import numpy as np
 import pytest
 
 from cellbuild.build import AVOGADRO, choose_repeat, lattice_constant, replicate, resolve
+from cellbuild.crystal import resolve_crystal
 from cellbuild.errors import InputError
 from cellbuild.recipe import parse_recipe
 
@@ -19,6 +20,10 @@ HANDBOOK = [
     ("Ag", "fcc", 4.09, 10.5), ("Fe", "bcc", 2.87, 7.87), ("W", "bcc", 3.16, 19.3),
     ("Si", "diamond", 5.43, 2.33), ("Ge", "diamond", 5.66, 5.32), ("Po", "sc", 3.35, 9.20),
 ]
+
+
+def _crystal(lattice, a, element="Cu"):
+    return resolve_crystal(lattice, a, (("A", element),))
 
 
 def _recipe(**crystal_and_size):
@@ -85,7 +90,7 @@ def test_reference_constant_refused_when_table_lattice_differs():
 ])
 def test_atoms_size_picks_nearest_compact_repeat(lattice, target, expected):
     r = _recipe(element="Cu", lattice=lattice, a=3.0, size={"atoms": target})
-    assert choose_repeat(r, 3.0) == expected
+    assert choose_repeat(r, _crystal(lattice, 3.0)) == expected
 
 
 @pytest.mark.parametrize("target", [7, 64, 97, 250, 1001, 5000, 12345])
@@ -106,11 +111,11 @@ def test_atoms_size_tie_goes_to_more_cubic_then_larger():
     # bcc (2 atoms per cell), target 9: 1x2x2 cells hold 8 atoms, 1x1x5 is not compact
     # and 5 cells have no compact factorisation, so 8 (1 away) wins
     r = _recipe(element="Cu", lattice="bcc", a=3.0, size={"atoms": 9})
-    assert choose_repeat(r, 3.0) == (1, 2, 2)
+    assert choose_repeat(r, _crystal("bcc", 3.0)) == (1, 2, 2)
     # sc, target 3: 1x1x2 (2 atoms) and 1x2x2 (4 atoms) are both 1 away and equally
     # anisotropic (ratio 2): the tie goes to the larger
     r = _recipe(element="Cu", lattice="sc", a=3.0, size={"atoms": 3})
-    assert choose_repeat(r, 3.0) == (1, 2, 2)
+    assert choose_repeat(r, _crystal("sc", 3.0)) == (1, 2, 2)
 
 
 def test_plan_says_how_far_from_the_asked_atom_count(cli, recipe_file):
@@ -129,12 +134,12 @@ def test_plan_says_how_far_from_the_asked_atom_count(cli, recipe_file):
 
 def test_min_length_smallest_n_with_n_a_at_least_length():
     r = _recipe(element="Cu", lattice="fcc", a=3.6, size={"min_length": [36.0, 36.1, 3.0]})
-    assert choose_repeat(r, 3.6) == (10, 11, 1)
+    assert choose_repeat(r, _crystal("fcc", 3.6)) == (10, 11, 1)
 
 
 def test_replication_positions_are_lattice_translations():
     # every atom sits at (integer cell + basis) * a: textbook definition of a supercell
-    s = replicate("diamond", 5.43, (2, 3, 4), symbols=("Si",))
+    s = replicate(_crystal("diamond", 5.43, "Si"), (2, 3, 4), symbols=("Si",))
     assert s.n_atoms == 8 * 24
     frac_in_cells = s.positions / 5.43
     basis = np.array([[0, 0, 0], [0, .5, .5], [.5, 0, .5], [.5, .5, 0],

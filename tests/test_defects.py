@@ -98,7 +98,7 @@ def test_single_vacancy_leaves_first_shell_one_short(lattice, first_shell):
     counts = _ase_counts(b.structure, shells(lattice).audit_cutoff * 3.615)
     assert np.count_nonzero(counts == first_shell - 1) == first_shell
     assert np.count_nonzero(counts != first_shell) == first_shell
-    np.testing.assert_array_equal(expected_coordination(b.structure, lattice, (4, 4, 4)), counts)
+    np.testing.assert_array_equal(expected_coordination(b.structure, b.plan.crystal, (4, 4, 4)), counts)
 
 
 def _host_distances(b):
@@ -145,7 +145,7 @@ def test_min_separation_is_kept():
     b = _built(repeat=(6, 6, 6), vacancies={"count": 10},
                substitutions=[{"element": "Ni", "count": 20}], min_separation=5.0,
                interstitials=[{"element": "C", "site": "octahedral", "count": 5}])
-    pos = np.concatenate([site_positions("fcc", 3.615, (6, 6, 6), p.site_ids) for p in b.placements])
+    pos = np.concatenate([site_positions(b.plan.crystal, (6, 6, 6), p.site_ids) for p in b.placements])
     _, d = get_distances(pos, cell=b.structure.cell, pbc=True)
     d[np.diag_indices_from(d)] = np.inf
     assert d.min() >= 5.0

@@ -14,6 +14,7 @@ import pytest
 
 from cellbuild.audit import spacegroup
 from cellbuild.build import replicate
+from cellbuild.crystal import resolve_crystal
 from cellbuild.lattices import LATTICES, packing_fraction, shells, touching_radius_factor
 
 # (atoms per conventional cell, nearest-neighbour distance / a, coordination,
@@ -66,7 +67,7 @@ def test_touching_radius_relation(name):
 def test_spglib_finds_the_space_group_of_the_built_cell(name):
     # spglib (reference library) works from the coordinates we build
     for repeat in [(1, 1, 1), (2, 3, 2)]:
-        s = replicate(name, 4.0, repeat, symbols=("Cu",))
+        s = replicate(resolve_crystal(name, 4.0, (("A", "Cu"),)), repeat, symbols=("Cu",))
         assert spacegroup(s)[1] == TEXTBOOK[name][4]
 
 

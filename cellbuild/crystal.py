@@ -1,0 +1,157 @@
+"""The resolved crystal: a lattice-table entry turned into numbers, once.
+
+:func:`resolve_crystal` takes a table entry (:mod:`cellbuild.lattices`), the
+lattice constant and the element on each sublattice, and returns a frozen
+:class:`Crystal` holding everything the later stages need: the conventional
+cell in Angstrom, the basis, the grid of every site a structure can occupy
+(basis first, then the interstitial kinds), the neighbour shells and the
+audit's neighbour-offset table, all measured with the cell metric. The plan
+carries it; building, defect placement and the audit never look a lattice up
+by name again.
+"""
+from __future__ import annotations
+
+import math
+from dataclasses import dataclass
+from functools import lru_cache
+from itertools import product
+
+import numpy as np
+
+from .lattices import LATTICES, Shells, shells
+
+
+@dataclass(frozen=True, eq=False)
+class Crystal:
+    """A crystal ready to build. Lengths in Angstrom.
+
+    Attributes:
+        prototype: the lattice-table key (``fcc``, ...).
+        title: human name of the prototype.
+        a: lattice constant.
+        cell: (3, 3) conventional cell, lattice vectors as rows.
+        basis: (n_basis, 3) fractional coordinates of the atoms of one cell.
+        sublattice: sublattice label of each basis site.
+        elements: element on each basis site (from the sublattice's species).
+        site_frac: (n_grid, 3) fractional coordinates of every grid site of a
+            cell: the basis, then each interstitial kind in table order.
+        site_kind: ``"lattice"`` or the interstitial kind of each grid site.
+        space_group: (symbol, International Tables number) of the ideal crystal.
+        shells: neighbour shells of the lattice sites, distances in Angstrom.
+        audit_cutoff: midway between the first two neighbour shells.
+        offsets: audit neighbour table: entries ``(s, (di, dj, dk), t)`` where
+            grid site ``t`` of the cell displaced by ``(di, dj, dk)`` lies within
+            :attr:`audit_cutoff` of grid site ``s``.
+    """
+
+    prototype: str
+    title: str
+    a: float
+    cell: np.ndarray
+    basis: np.ndarray
+    sublattice: tuple[str, ...]
+    elements: tuple[str, ...]
+    site_frac: np.ndarray
+    site_kind: tuple[str, ...]
+    space_group: tuple[str, int]
+    shells: Shells
+    audit_cutoff: float
+    offsets: tuple[tuple[int, tuple[int, int, int], int], ...]
+
+    @property
+    def n_basis(self) -> int:
+        return len(self.basis)
+
+    @property
+    def n_grid(self) -> int:
+        return len(self.site_frac)
+
+    @property
+    def interstitial_kinds(self) -> tuple[str, ...]:
+        return tuple(dict.fromkeys(k for k in self.site_kind if k != "lattice"))
+
+    @property
+    def nearest(self) -> float:
+        """Nearest-neighbour distance of the ideal crystal, Angstrom."""
+        return self.shells.nearest
+
+    @property
+    def volume(self) -> float:
+        """Conventional cell volume, Angstrom^3."""
+        return float(abs(np.linalg.det(self.cell)))
+
+    def supercell(self, repeat: tuple[int, int, int]) -> np.ndarray:
+        """Lattice vectors (rows, Angstrom) of ``repeat`` conventional cells."""
+        return self.cell * np.asarray(repeat, dtype=np.float64)[:, None]
+
+    def to_cartesian(self, frac: np.ndarray, out: np.ndarray | None = None) -> np.ndarray:
+        """Cartesian positions (Angstrom) of points in conventional-cell fractions.
+
+        A cubic cell takes the elementwise product (exactly what ``frac * a``
+        gives, so outputs keep their bytes); any other cell a matrix product.
+        """
+        if _is_diagonal(self.cell):
+            return np.multiply(frac, np.diag(self.cell), out=out)
+        result = frac @ self.cell
+        if out is None:
+            return result
+        out[...] = result
+        return out
+
+    def to_fractional(self, positions: np.ndarray) -> np.ndarray:
+        """Conventional-cell fractions of Cartesian positions (Angstrom)."""
+        if _is_diagonal(self.cell):
+            return positions / np.diag(self.cell)
+        return positions @ np.linalg.inv(self.cell)
+
+
+def _is_diagonal(m: np.ndarray) -> bool:
+    return not np.any(m - np.diag(np.diag(m)))
+
+
+def resolve_crystal(prototype: str, a: float, species: tuple[tuple[str, str], ...]) -> Crystal:
+    """The :class:`Crystal` of table entry ``prototype`` with lattice constant ``a``
+    (Angstrom) and ``species`` as (sublattice label, element) pairs.
+
+    Cached: a library of many structures of one crystal resolves it once per process.
+    """
+    return _resolve(prototype, float(a), tuple(species))
+
+
+@lru_cache(maxsize=256)
+def _resolve(prototype: str, a: float, species: tuple[tuple[str, str], ...]) -> Crystal:
+    lat = LATTICES[prototype]
+    on = dict(species)
+    cell = np.array(lat.cell, dtype=np.float64) * a
+    basis = lat.basis_array()
+    parts, kinds = [basis], ["lattice"] * lat.n_basis
+    for kind, sites in lat.interstitials.items():
+        parts.append(np.array(sites, dtype=np.float64))
+        kinds += [kind] * len(sites)
+    site_frac = np.concatenate(parts)
+    geometry = shells(prototype)
+    scaled = Shells(tuple(d * a for d in geometry.distances), geometry.counts)
+    cutoff = geometry.audit_cutoff * a  # (d1 + d2) / 2 in units of a, then scaled
+    return Crystal(
+        prototype=prototype, title=lat.title, a=a, cell=cell, basis=basis,
+        sublattice=lat.sublattices, elements=tuple(on[label] for label in lat.sublattices),
+        site_frac=site_frac, site_kind=tuple(kinds), space_group=lat.space_group,
+        shells=scaled, audit_cutoff=cutoff,
+        offsets=_neighbour_offsets(cell, site_frac, cutoff),
+    )
+
+
+def _neighbour_offsets(cell: np.ndarray, frac: np.ndarray, cutoff: float):
+    """Grid-site pairs within ``cutoff`` (Angstrom), through the cell metric."""
+    # cells far enough out: the cutoff over the smallest perpendicular width
+    widths = abs(np.linalg.det(cell)) / np.linalg.norm(np.cross(cell[[1, 2, 0]],
+                                                                cell[[2, 0, 1]]), axis=1)
+    span = [math.ceil(cutoff / w) + 1 for w in widths]
+    cells = np.array(list(product(*(range(-s, s + 1) for s in span))), dtype=np.float64)
+    entries = []
+    for s, origin in enumerate(frac):
+        # (cells, sites) distances from site s to every site of the nearby cells
+        d = np.linalg.norm((cells[:, None, :] + frac[None, :, :] - origin) @ cell, axis=2)
+        ci, t = np.nonzero((d < cutoff) & (d > 1e-9 * cutoff))
+        entries += [(s, tuple(int(x) for x in cells[c]), int(u)) for c, u in zip(ci, t)]
+    return tuple(entries)
