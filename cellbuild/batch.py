@@ -2,162 +2,57 @@
 
 Every ``*.yaml``/``*.yml`` file under the source folder is expanded into its
 sweep points (:mod:`cellbuild.sweep`); each point is built by
-:func:`cellbuild.pipeline.make` in a process pool, into an output folder that
-mirrors the recipe's folder. ``OUT/manifest.json`` then records, per
-structure, the recipe and its sha256, the sweep values, the outcome and the
-sha256 and size of every file written, so that :mod:`cellbuild.verify` can
-later rebuild and compare.
+:func:`cellbuild.pipeline.make` in a process pool (:mod:`cellbuild.pool`),
+into an output folder that mirrors the recipe's folder. ``OUT/manifest.json``
+(:mod:`cellbuild.manifest`) then records, per structure, the recipe and its
+sha256, the sweep values, the outcome, the warnings and the sha256 and size of
+every file written, so that :mod:`cellbuild.verify` can later rebuild and
+compare.
 
 One bad recipe does not stop the others: it becomes an entry with an
 ``error``. The manifest is sorted by name and written with sorted keys, so the
 same recipes give the same manifest (apart from ``created``) whatever the
 number of workers.
+
+Nothing is written or deleted outside OUT: every path is checked with its
+symbolic links resolved, and a folder in OUT that is a link leading out is
+refused before anything is built.
 """
 from __future__ import annotations
 
 import hashlib
-import json
-import math
 import os
-import sys
-import time
-from dataclasses import dataclass, field
+from dataclasses import dataclass
 from pathlib import Path
-from typing import Callable, Iterable, Sequence
+from typing import Callable, Sequence
 
-from . import __version__
+from .batch_report import ProgressBar, junit_xml, outcome_line, write_junit  # noqa: F401
 from .errors import InputError
+from .manifest import (MANIFEST_NAME, OUTPUT_SUFFIXES, RECIPE_SUFFIXES,  # noqa: F401
+                       listed_paths, make_manifest, manifest_bytes, read_json, write_manifest)
+from .outcomes import (EXIT_BAD_INPUT, EXIT_FAILED_CHECK, EXIT_OK, Job,  # noqa: F401
+                       Outcome, Source, error_outcome, exit_code, sort_outcomes)
+from .pool import build_job, default_workers, run_jobs, sigterm_as_interrupt  # noqa: F401
 
-MANIFEST_NAME = "manifest.json"
-RECIPE_SUFFIXES = (".yaml", ".yml")
-#: Files cellbuild writes for a structure; `verify` reports others of these kinds as extra.
-OUTPUT_SUFFIXES = (".lmp", ".cif", ".xyz", ".vasp", ".report.json", ".defects.json")
-
-EXIT_OK, EXIT_FAILED_CHECK, EXIT_BAD_INPUT = 0, 1, 2
-
-#: Largest number of structures sent to a worker at once: enough to make the
-#: inter-process overhead negligible for 100-atom structures, small enough
-#: that the last chunks still spread over the workers.
-MAX_CHUNK = 16
-
-
-# ----------------------------------------------------------------------------- types
-
-
-@dataclass(frozen=True)
-class Source:
-    """A recipe file to build.
-
-    ``path`` is where to read it; ``recipe`` its path relative to the manifest
-    folder (POSIX, as recorded); ``display`` the path to show the user;
-    ``rel_dir`` the output subfolder relative to OUT (POSIX, ``""`` for OUT).
-    """
-
-    path: Path
-    recipe: str
-    display: str
-    rel_dir: str
-
-
-@dataclass(frozen=True)
-class Job:
-    """One structure to build; plain, picklable data for a worker process.
-
-    ``out_dir`` is the absolute folder its files go to.
-    """
-
-    name: str
-    source: Source
-    recipe_sha256: str
-    sweep: dict
-    recipe: object  # cellbuild.recipe.Recipe (kept untyped: no import at module load)
-    out_dir: str
-
-
-@dataclass(frozen=True)
-class Outcome:
-    """What happened to one structure (or to a recipe that could not be expanded).
-
-    ``outputs`` maps a format key (and ``report``, ``defects``) to
-    ``{"path" (relative to OUT, POSIX), "sha256", "bytes"}``. ``error`` is the
-    one-line message of bad input with the recipe named as in the manifest,
-    ``display_error`` the same message with the recipe named as the user gave it.
-    ``seconds`` is the build time (wall clock).
-    """
-
-    name: str
-    source: Source
-    recipe_sha256: str | None
-    sweep: dict = field(default_factory=dict)
-    seed: int | None = None
-    n_atoms: int | None = None
-    passed: bool = False
-    outputs: dict = field(default_factory=dict)
-    failed_checks: tuple = ()
-    error: str | None = None
-    display_error: str | None = None
-    seconds: float = 0.0
-
-    @property
-    def status(self) -> str:
-        """``passed``, ``failed`` (a check failed) or ``error`` (could not be built)."""
-        if self.error is not None:
-            return "error"
-        return "passed" if self.passed else "failed"
-
-    def manifest_entry(self) -> dict:
-        """The manifest record of this structure (JSON-ready)."""
-        entry = {
-            "name": self.name,
-            "recipe": self.source.recipe,
-            "recipe_sha256": self.recipe_sha256,
-            "sweep": {key: _json_safe(value) for key, value in self.sweep.items()},
-            "seed": self.seed,
-            "n_atoms": self.n_atoms,
-            "passed": self.passed,
-            "outputs": self.outputs,
-        }
-        if self.failed_checks:
-            entry["failed_checks"] = [dict(c) for c in self.failed_checks]
-        if self.error is not None:
-            entry["error"] = self.error
-        return entry
-
-
-def _json_safe(value):
-    """A swept value as JSON: YAML may give dates or nan, which an invalid point
-    still records in its entry."""
-    if isinstance(value, float) and not math.isfinite(value):
-        return str(value)
-    if isinstance(value, (str, int, float, bool)) or value is None:
-        return value
-    if isinstance(value, list):
-        return [_json_safe(v) for v in value]
-    if isinstance(value, dict):
-        return {str(k): _json_safe(v) for k, v in value.items()}
-    return str(value)
+#: Temporaries of these files in OUT are ours (``.NAME.lmp.XXXXXXXX.part`` ...).
+TEMPORARY_TARGETS = OUTPUT_SUFFIXES + (MANIFEST_NAME,)
 
 
 @dataclass(frozen=True)
 class BatchResult:
-    """The outcomes (sorted by name), the manifest written and stale files removed."""
+    """The outcomes (sorted by name), the manifest written, stale files removed
+    (``removed``: listed by the previous manifest; ``temporaries``: left by an
+    interrupted run)."""
 
     outcomes: list[Outcome]
     manifest: dict
     manifest_path: Path
     removed: list[str]
+    temporaries: list[str] = ()
 
     @property
     def exit_code(self) -> int:
         return exit_code(self.outcomes)
-
-
-def exit_code(outcomes: Iterable[Outcome]) -> int:
-    """2 if any structure could not be built, else 1 if any failed a check, else 0."""
-    statuses = {o.status for o in outcomes}
-    if "error" in statuses:
-        return EXIT_BAD_INPUT
-    return EXIT_FAILED_CHECK if "failed" in statuses else EXIT_OK
 
 
 # ----------------------------------------------------------------------------- discovery
@@ -168,8 +63,11 @@ def discover(source_dir: Path, manifest_dir: Path, skip: Path | None = None) -> 
 
     Hidden folders and files (``.git``, ...) and the folder ``skip`` (the
     output folder, if it lies inside) are left out; symbolic links to folders
-    are not followed, so the walk is finite and the same on every machine.
+    are not followed, so the walk is finite and the same on every machine, and
+    a recipe that is a link to a file outside ``source_dir`` is left out too.
     """
+    from .fileio import is_inside
+
     root = Path(os.path.abspath(source_dir))
     skip_abs = os.path.abspath(skip) if skip is not None else None
     found = []
@@ -177,8 +75,10 @@ def discover(source_dir: Path, manifest_dir: Path, skip: Path | None = None) -> 
         dirs[:] = sorted(d for d in dirs if not d.startswith(".")
                          and os.path.join(folder, d) != skip_abs)
         for name in files:
-            if name.endswith(RECIPE_SUFFIXES) and not name.startswith("."):
-                found.append(Path(folder) / name)
+            path = Path(folder) / name
+            if name.endswith(RECIPE_SUFFIXES) and not name.startswith(".") \
+                    and (not path.is_symlink() or is_inside(path, root)):
+                found.append(path)
     found.sort(key=lambda p: p.relative_to(root).as_posix())
     return [make_source(p, root, manifest_dir, display_root=source_dir) for p in found]
 
@@ -214,7 +114,7 @@ def plan_jobs(sources: Sequence[Source], out_root: Path) -> tuple[list[Job], lis
         try:
             sha, points = _expand(source)
         except InputError as exc:
-            failed.append(_error_outcome(_fallback_name(source), source, None, exc))
+            failed.append(error_outcome(_fallback_name(source), source, None, exc))
             continue
         for point in points:
             out_dir = out_root / source.rel_dir
@@ -228,7 +128,7 @@ def plan_jobs(sources: Sequence[Source], out_root: Path) -> tuple[list[Job], lis
                                  "already writes", key="name", value=point.name,
                                  hint="give each structure in a folder its own name",
                                  file=source.recipe)
-                failed.append(_error_outcome(point.name, source, sha, exc, point.values))
+                failed.append(error_outcome(point.name, source, sha, exc, point.values))
                 continue
             owner = f"`{point.name}` ({source.recipe})"
             claimed.update((p.casefold(), owner) for p in paths)
@@ -258,152 +158,7 @@ def _fallback_name(source: Source) -> str:
     return Path(source.recipe).stem
 
 
-def _error_outcome(name: str, source: Source, sha: str | None, exc: InputError,
-                   sweep: dict | None = None, seconds: float = 0.0) -> Outcome:
-    return Outcome(name=name, source=source, recipe_sha256=sha, sweep=dict(sweep or {}),
-                   error=_message(exc, source.recipe), display_error=_message(exc, source.display),
-                   seconds=seconds)
-
-
-def _message(exc: InputError, file: str) -> str:
-    """The error's one-line message with the recipe file named as ``file``."""
-    if exc.file is None:
-        return str(exc)
-    saved, exc.file = exc.file, file
-    try:
-        return str(exc)
-    finally:
-        exc.file = saved
-
-
-# ----------------------------------------------------------------------------- building
-
-
-def build_job(job: Job) -> Outcome:
-    """Build, audit and write one structure (runs in a worker process)."""
-    from .fileio import sha256_file
-    from .pipeline import make
-
-    start = time.perf_counter()
-    try:
-        # workers=1: the pool already uses every core; a second level of
-        # threads in the neighbour search would only oversubscribe them.
-        result = make(job.recipe, job.out_dir, force=True, recipe_sha256=job.recipe_sha256,
-                      workers=1)
-    except InputError as exc:
-        return _error_outcome(job.name, job.source, job.recipe_sha256, exc, job.sweep,
-                              time.perf_counter() - start)
-    except OSError as exc:
-        error = InputError(f"cannot write ({exc.strerror or exc})", key="--out",
-                           value=str(exc.filename or job.out_dir), file=job.source.recipe)
-        return _error_outcome(job.name, job.source, job.recipe_sha256, error, job.sweep,
-                              time.perf_counter() - start)
-    except Exception as exc:  # noqa: BLE001 -- a bug met by one structure must not stop the library
-        return _crashed(job, exc)
-    report = result.report
-    prefix = f"{job.source.rel_dir}/" if job.source.rel_dir else ""
-    outputs = {key: {"path": prefix + Path(info["path"]).as_posix(), "sha256": info["sha256"],
-                     "bytes": info["bytes"]}
-               for key, info in report["outputs"].items()}
-    extra = {"report": result.report_path}
-    if report.get("defect_sites"):
-        extra["defects"] = Path(job.out_dir) / report["defect_sites"]
-    for key, path in extra.items():
-        outputs[key] = {"path": prefix + path.name, "sha256": sha256_file(path),
-                        "bytes": path.stat().st_size}
-    failed = tuple({"name": c["name"], "detail": c["detail"]}
-                   for c in report["checks"] if not c["passed"])
-    return Outcome(name=job.name, source=job.source, recipe_sha256=job.recipe_sha256,
-                   sweep=job.sweep, seed=report["seed"], n_atoms=report["n_atoms"],
-                   passed=bool(report["passed"]), outputs=outputs, failed_checks=failed,
-                   seconds=time.perf_counter() - start)
-
-
-def build_chunk(jobs: list[Job]) -> list[Outcome]:
-    """Build several structures in one worker call (fewer round trips between processes)."""
-    return [build_job(job) for job in jobs]
-
-
-#: Native thread pools (OpenBLAS, OpenMP, MKL, ...) limited to one thread per worker.
-_THREAD_VARIABLES = ("OMP_NUM_THREADS", "OPENBLAS_NUM_THREADS", "MKL_NUM_THREADS",
-                     "BLIS_NUM_THREADS", "NUMEXPR_NUM_THREADS", "VECLIB_MAXIMUM_THREADS")
-
-
-def _start_worker() -> None:
-    """First thing in each (freshly spawned) worker: one native thread, then the imports.
-
-    The pool already puts one process on every core; numpy's BLAS threads in
-    each worker would spin-wait for cores the other workers need (measured:
-    the audit of a 100-atom cell took 3x longer with two workers). The limits
-    must be set before numpy is imported, hence spawned workers, not forked
-    ones that inherit the parent's thread pools. A value the user has set wins.
-    """
-    for variable in _THREAD_VARIABLES:
-        os.environ.setdefault(variable, "1")
-    import cellbuild.pipeline  # noqa: F401 -- import once per worker, not per job
-
-
-def run_jobs(jobs: Sequence[Job], workers: int,
-             on_done: Callable[[Outcome], None] | None = None) -> list[Outcome]:
-    """Build every job, ``workers`` processes at a time; call ``on_done`` as each finishes.
-
-    With one worker (or one job) the jobs run in this process, without a pool.
-    A worker process that dies takes its chunk down with it: those structures
-    are recorded as errors and the others go on.
-    """
-    note = on_done or (lambda outcome: None)
-    if workers <= 1 or len(jobs) <= 1:
-        outcomes = []
-        for job in jobs:
-            outcomes.append(build_job(job))
-            note(outcomes[-1])
-        return outcomes
-    import multiprocessing
-    from concurrent.futures import ProcessPoolExecutor, as_completed
-
-    size = max(1, min(MAX_CHUNK, math.ceil(len(jobs) / (4 * workers))))
-    chunks = [list(jobs[i:i + size]) for i in range(0, len(jobs), size)]
-    outcomes = []
-    with ProcessPoolExecutor(max_workers=min(workers, len(chunks)),
-                             mp_context=multiprocessing.get_context("spawn"),
-                             initializer=_start_worker) as pool:
-        futures = {pool.submit(build_chunk, chunk): chunk for chunk in chunks}
-        for future in as_completed(futures):
-            try:
-                done = future.result()
-            except Exception as exc:  # noqa: BLE001 -- a dead worker must not stop the rest
-                # (BrokenProcessPool after a crash, or a result that cannot be pickled)
-                done = [_crashed(job, exc) for job in futures[future]]
-            for outcome in done:
-                outcomes.append(outcome)
-                note(outcome)
-    return outcomes
-
-
-def _crashed(job: Job, exc: BaseException) -> Outcome:
-    """An error outcome for a structure whose build failed unexpectedly (a bug or a
-    dead worker process), so the rest of the library still gets built."""
-    error = InputError(f"could not be built because of an internal error "
-                       f"({type(exc).__name__}: {exc})", key="name", value=job.name,
-                       hint="`cellbuild --debug make` on this recipe shows the traceback",
-                       file=job.source.recipe)
-    return _error_outcome(job.name, job.source, job.recipe_sha256, error, job.sweep)
-
-
-def sort_outcomes(outcomes: Iterable[Outcome]) -> list[Outcome]:
-    """Manifest order: by name, then by recipe path (names may repeat across folders)."""
-    return sorted(outcomes, key=lambda o: (o.name, o.source.recipe))
-
-
 # ----------------------------------------------------------------------------- the library
-
-
-def default_workers() -> int:
-    """The cores this process may use."""
-    try:
-        return max(1, len(os.sched_getaffinity(0)))
-    except AttributeError:  # not available on macOS and Windows
-        return max(1, os.cpu_count() or 1)
 
 
 def build_library(source_dir: str | os.PathLike, out: str | os.PathLike, *,
@@ -414,12 +169,17 @@ def build_library(source_dir: str | os.PathLike, out: str | os.PathLike, *,
 
     Existing files in ``out`` that a structure writes are replaced; files that
     the previous manifest in ``out`` lists but this build no longer writes are
-    removed (other files are left alone). ``on_planned`` receives the number
-    of structures once the recipes are expanded, ``on_done`` each outcome.
+    removed, and so are temporaries an interrupted run left (other files are
+    left alone). ``on_planned`` receives the number of structures once the
+    recipes are expanded, ``on_done`` each outcome. SIGTERM stops the build
+    like Ctrl-C (``KeyboardInterrupt``), leaving no temporaries.
 
-    Raises :class:`InputError` if ``source_dir`` is not a folder holding
-    recipes or ``out`` cannot be used (before anything is written).
+    Raises :class:`InputError` before anything is built if ``source_dir`` is
+    not a folder holding recipes, is not inside ``out``'s parent folder (the
+    library could not be verified), or ``out``, its manifest or a folder in it
+    cannot be used.
     """
+    from .fileio import remove_temporaries
     from .pipeline import ensure_output_dir
 
     source_dir, out = Path(source_dir), Path(out)
@@ -434,67 +194,74 @@ def build_library(source_dir: str | os.PathLike, out: str | os.PathLike, *,
                          value=str(source_dir))
     if out.exists() and not out.is_dir():
         raise InputError("exists and is not a folder", key="--out", value=str(out))
+    _check_source_placement(source_dir, out)
+    manifest_path = out / MANIFEST_NAME
+    _check_manifest_target(manifest_path, out)
     ensure_output_dir(out)
-    previous = previous_outputs(out / MANIFEST_NAME)
+    previous = previous_outputs(manifest_path)
     jobs, failed = plan_jobs(sources, out)
+    _check_job_folders(jobs, out)
+    temporaries = remove_temporaries(out, TEMPORARY_TARGETS)
     if on_planned:
         on_planned(len(jobs) + len(failed))
     for outcome in failed:
         if on_done:
             on_done(outcome)
-    built = run_jobs(jobs, workers or default_workers(), on_done)
+    with sigterm_as_interrupt():
+        built = run_jobs(jobs, workers or default_workers(), on_done)
     outcomes = sort_outcomes(failed + built)
     manifest = make_manifest(outcomes, source=_relative(source_dir, out))
     removed = remove_stale(out, previous, manifest)
-    write_manifest(out / MANIFEST_NAME, manifest)
-    return BatchResult(outcomes, manifest, out / MANIFEST_NAME, removed)
+    write_manifest(manifest_path, manifest)
+    return BatchResult(outcomes, manifest, manifest_path, removed, temporaries)
+
+
+def _check_source_placement(source_dir: Path, out: Path) -> None:
+    """Refuse a recipe folder outside OUT's parent: verify would refuse the manifest
+    (see :mod:`cellbuild.manifest`), so the library could never be checked."""
+    from .fileio import is_within
+
+    holder = os.path.dirname(os.path.realpath(out))
+    if not is_within(source_dir, holder):
+        raise InputError(f"is not inside {holder}, the folder that holds the library, so "
+                         "`cellbuild verify` could not check it", key="DIR",
+                         value=str(source_dir),
+                         hint="put --out beside the recipe folder or inside it")
+
+
+def _check_manifest_target(manifest_path: Path, out: Path) -> None:
+    """The manifest must be writable as a file in OUT, checked before anything is built."""
+    from .fileio import is_inside
+
+    if manifest_path.is_dir() and not manifest_path.is_symlink():
+        raise InputError("is a folder, so the manifest cannot be written", key="--out",
+                         value=str(manifest_path), hint="move that folder away")
+    if manifest_path.is_symlink() and not is_inside(manifest_path, out):
+        raise InputError("is a symbolic link leading out of the library", key="--out",
+                         value=str(manifest_path), hint="remove the link")
+
+
+def _check_job_folders(jobs: Sequence[Job], out: Path) -> None:
+    """Refuse, before building, any output folder that a symbolic link takes out of OUT."""
+    from .fileio import is_within
+
+    for folder in sorted({job.out_dir for job in jobs}):
+        if not is_within(folder, out):
+            raise InputError("leads outside the library through a symbolic link, and "
+                             "nothing is written there", key="--out", value=folder,
+                             hint="remove the link or replace it with a real folder")
 
 
 def _relative(path: Path, start: Path) -> str:
-    return Path(os.path.relpath(os.path.abspath(path), os.path.abspath(start))).as_posix()
-
-
-def make_manifest(outcomes: Sequence[Outcome], source: str) -> dict:
-    """The manifest dictionary; ``source`` is the recipe folder relative to the manifest."""
-    from datetime import datetime, timezone
-
-    return {
-        "cellbuild": __version__,
-        "created": datetime.now(timezone.utc).isoformat(timespec="seconds"),
-        "source": source,
-        "structures": [o.manifest_entry() for o in sort_outcomes(outcomes)],
-    }
-
-
-def manifest_bytes(manifest: dict) -> bytes:
-    """Stable JSON: sorted keys, two-space indent, trailing newline."""
-    return (json.dumps(manifest, indent=2, sort_keys=True, allow_nan=False) + "\n").encode()
-
-
-def write_manifest(path: Path, manifest: dict) -> None:
-    """Write the manifest atomically: a reader sees the old one or the new one."""
-    from .fileio import write_bytes_atomic
-
-    write_bytes_atomic(path, manifest_bytes(manifest))
-
-
-def listed_paths(manifest: dict) -> set[str]:
-    """Every output path (relative to the manifest's folder) the manifest lists."""
-    paths = set()
-    for entry in manifest.get("structures", []):
-        outputs = entry.get("outputs") if isinstance(entry, dict) else None
-        for info in (outputs or {}).values():
-            if isinstance(info, dict) and isinstance(info.get("path"), str):
-                paths.add(info["path"])
-    return paths
+    return Path(os.path.relpath(os.path.realpath(path), os.path.realpath(start))).as_posix()
 
 
 def previous_outputs(manifest_path: Path) -> set[str]:
     """Output paths listed by an earlier manifest at ``manifest_path`` (empty if none
     or unreadable: then nothing is removed, which is the safe side)."""
     try:
-        return listed_paths(json.loads(manifest_path.read_text(encoding="utf-8")))
-    except (OSError, ValueError, AttributeError):
+        return listed_paths(read_json(manifest_path))
+    except InputError:
         return set()
 
 
@@ -502,107 +269,23 @@ def remove_stale(out: Path, previous: set[str], manifest: dict) -> list[str]:
     """Delete files the previous manifest listed and the new one does not.
 
     Only cellbuild output files inside ``out`` are touched, whatever an edited
-    old manifest says.
+    old manifest says: each path is resolved (symbolic links included) and
+    skipped unless it stays inside ``out``'s real path.
     """
+    from .fileio import is_inside, is_within
+
     removed = []
-    root = os.path.abspath(out)
+    root = os.path.realpath(out)
     # casefolded: on a case-insensitive file system `Cu.lmp` and `cu.lmp` are one file
     current = {p.casefold() for p in listed_paths(manifest)}
     for rel in sorted(p for p in previous if p.casefold() not in current):
-        path = os.path.abspath(os.path.join(root, rel))
-        inside = os.path.commonpath([root, path]) == root and path != root
-        if inside and rel.endswith(OUTPUT_SUFFIXES) and os.path.isfile(path):
-            os.unlink(path)
+        if os.path.isabs(rel) or not rel.endswith(OUTPUT_SUFFIXES):
+            continue
+        path = os.path.join(root, rel)
+        folder = os.path.realpath(os.path.dirname(path))
+        # the folder and the file, links resolved, must both be in OUT; the name is
+        # then removed in the resolved folder, so no link is followed out at unlink time
+        if is_within(folder, root) and is_inside(path, root) and os.path.isfile(path):
+            os.unlink(os.path.join(folder, os.path.basename(path)))
             removed.append(rel)
     return removed
-
-
-# ----------------------------------------------------------------------------- reporting
-
-
-def junit_xml(outcomes: Sequence[Outcome]) -> bytes:
-    """A JUnit XML report: one test case per structure, ``<failure>`` for failed
-    checks, ``<error>`` for structures that could not be built."""
-    import xml.etree.ElementTree as ET
-
-    failures = sum(o.status == "failed" for o in outcomes)
-    errors = sum(o.status == "error" for o in outcomes)
-    total = sum(o.seconds for o in outcomes)
-    suite = ET.Element("testsuite", name="cellbuild", tests=str(len(outcomes)),
-                       failures=str(failures), errors=str(errors), skipped="0",
-                       time=f"{total:.3f}")
-    for o in sort_outcomes(outcomes):
-        case = ET.SubElement(suite, "testcase", classname=o.source.display, name=o.name,
-                             time=f"{o.seconds:.3f}")
-        if o.status == "error":
-            node = ET.SubElement(case, "error", message=o.display_error or "",
-                                 type="InputError")
-            node.text = o.display_error
-        elif o.status == "failed":
-            names = ", ".join(c["name"] for c in o.failed_checks)
-            node = ET.SubElement(case, "failure", message=f"failed checks: {names}",
-                                 type="CheckFailed")
-            node.text = "\n".join(f"{c['name']}: {c['detail']}" for c in o.failed_checks)
-        else:
-            ET.SubElement(case, "system-out").text = f"{o.n_atoms} atoms, all checks passed"
-    ET.indent(suite)
-    return ET.tostring(suite, encoding="utf-8", xml_declaration=True) + b"\n"
-
-
-def write_junit(path: str | os.PathLike, outcomes: Sequence[Outcome]) -> None:
-    """Write :func:`junit_xml` to ``path`` atomically (creating its folder)."""
-    from .fileio import write_bytes_atomic
-
-    path = Path(path)
-    try:
-        path.parent.mkdir(parents=True, exist_ok=True)
-        write_bytes_atomic(path, junit_xml(outcomes))
-    except OSError as exc:
-        raise InputError(f"cannot be written ({exc.strerror or exc})", key="--junit",
-                         value=str(path)) from None
-
-
-def outcome_line(o: Outcome) -> str:
-    """One plain line per structure: name, atoms, passed/FAILED/ERROR."""
-    if o.status == "error":
-        return f"{o.name}  ERROR  {o.display_error}"
-    if o.status == "failed":
-        names = ", ".join(c["name"] for c in o.failed_checks)
-        return f"{o.name}  {o.n_atoms:,} atoms  FAILED ({names})"
-    return f"{o.name}  {o.n_atoms:,} atoms  passed"
-
-
-class ProgressBar:
-    """A one-line text progress bar redrawn with carriage returns (for a terminal)."""
-
-    WIDTH = 30
-
-    def __init__(self, stream=None, label: str = "building") -> None:
-        self.stream = stream or sys.stderr
-        self.label = label
-        self.total = 0
-        self.done = 0
-        self.problems = 0
-        self.start = time.perf_counter()
-
-    def planned(self, total: int) -> None:
-        self.total = total
-        self._draw("")
-
-    def update(self, outcome: Outcome) -> None:
-        self.done += 1
-        self.problems += outcome.status != "passed"
-        self._draw(outcome.name)
-
-    def close(self) -> None:
-        self.stream.write("\r\033[K")
-        self.stream.flush()
-
-    def _draw(self, name: str) -> None:
-        filled = int(self.WIDTH * self.done / self.total) if self.total else 0
-        rate = self.done / max(time.perf_counter() - self.start, 1e-9)
-        bad = f", {self.problems} not passed" if self.problems else ""
-        text = (f"\r{self.label} [{'#' * filled}{'.' * (self.WIDTH - filled)}] "
-                f"{self.done}/{self.total} ({rate:.1f}/s{bad}) {name[:40]}")
-        self.stream.write(text + "\033[K")
-        self.stream.flush()

@@ -1,23 +1,52 @@
-"""Atomic file writing: write to a temporary file beside the target, then rename.
+"""Atomic file writing: write to a temporary beside the target, then rename.
 
 A reader never sees a half-written file, and an interrupted write leaves the
-previous file (if any) intact and no temporary file behind.
+previous file (if any) intact and no temporary behind. Temporaries are hidden
+files named ``.NAME.XXXXXXXX.part`` (``XXXXXXXX``: 8 random characters, as
+:func:`tempfile.mkstemp` makes them); the old files a commit keeps aside until
+it has succeeded are ``.NAME.XXXXXXXX.bak``. :func:`is_temporary` recognises
+both, so a folder left by a killed process (SIGKILL, a power cut) can be
+cleaned.
 """
 from __future__ import annotations
 
 import contextlib
 import os
+import re
 import tempfile
 from pathlib import Path
-from typing import BinaryIO, Iterator
+from typing import BinaryIO, Iterable, Iterator
+
+from .errors import InputError
+
+TEMP_SUFFIX = ".part"
+BACKUP_SUFFIX = ".bak"
+#: ``.`` + target name + ``.`` + mkstemp's 8 random characters + suffix
+_TEMPORARY = re.compile(r"^\.(?P<target>.+)\.[a-z0-9_]{8}\.(?:part|bak)$")
+
+
+def is_temporary(name: str, targets: Iterable[str] | None = None) -> bool:
+    """Whether the file name ``name`` is one of our temporaries or backups.
+
+    With ``targets`` (name endings such as ``.lmp``), only temporaries of a
+    target ending so count: a folder may hold other programs' ``.part`` files.
+    """
+    match = _TEMPORARY.match(name)
+    if match is None:
+        return False
+    return targets is None or match.group("target").endswith(tuple(targets))
+
+
+def _stage(target: Path, suffix: str = TEMP_SUFFIX) -> tuple[int, str]:
+    """A new, empty hidden file beside ``target``: (open descriptor, path)."""
+    return tempfile.mkstemp(prefix=f".{target.name}.", suffix=suffix, dir=target.parent)
 
 
 @contextlib.contextmanager
 def atomic_writer(path: str | os.PathLike) -> Iterator[BinaryIO]:
     """Open a binary handle whose content replaces ``path`` only on success."""
     target = Path(path)
-    fd, tmp_name = tempfile.mkstemp(prefix=f".{target.name}.", suffix=".part",
-                                    dir=target.parent)
+    fd, tmp_name = _stage(target)
     try:
         with os.fdopen(fd, "wb", buffering=1 << 20) as handle:
             yield handle
@@ -69,16 +98,40 @@ def sha256_file(path: str | os.PathLike, block: int = 1 << 22) -> str:
     return digest.hexdigest()
 
 
+def is_inside(path: str | os.PathLike, root: str | os.PathLike) -> bool:
+    """Whether ``path``, every symbolic link resolved, lies strictly inside ``root``'s real path."""
+    real, top = os.path.realpath(path), os.path.realpath(root)
+    return real != top and os.path.commonpath([real, top]) == top
+
+
+def is_within(path: str | os.PathLike, root: str | os.PathLike) -> bool:
+    """Whether ``path`` is ``root`` or inside it, symbolic links resolved."""
+    return os.path.realpath(path) == os.path.realpath(root) or is_inside(path, root)
+
+
 class StagedFiles:
     """A group of files that appear together or not at all.
 
     Each file is written to a temporary beside its target; :meth:`commit`
-    renames them all into place, and leaving the ``with`` block by an exception
-    removes every temporary, so a failure midway (a full disk, an interrupt)
-    changes none of the targets.
+    first checks every target (none may be a folder or sit in a folder that
+    cannot be written; with ``replace=False`` none may exist), then moves them
+    all into place. Should a move fail midway (or a signal interrupt it), the
+    targets already moved are put back from hidden backups, so the group is
+    all new or all old. Leaving the ``with`` block by an exception removes
+    every temporary.
+
+    Args:
+        replace: replace existing targets (``make --force``). With ``False``
+            each target is claimed exclusively (a hard link, which fails if the
+            name exists), so of two processes writing the same name one wins
+            and the other gets an :class:`InputError`.
+        root: if given, refuse any target whose folder, symbolic links
+            resolved, is not inside ``root`` (a link must not lead writes out).
     """
 
-    def __init__(self) -> None:
+    def __init__(self, *, replace: bool = True, root: str | os.PathLike | None = None) -> None:
+        self.replace = replace
+        self.root = root
         self._staged: list[tuple[str, Path]] = []
 
     def __enter__(self) -> "StagedFiles":
@@ -91,9 +144,9 @@ class StagedFiles:
     def writer(self, path: str | os.PathLike) -> Iterator[BinaryIO]:
         """A binary handle for ``path``'s content, staged until :meth:`commit`."""
         target = Path(path)
-        fd, tmp_name = tempfile.mkstemp(prefix=f".{target.name}.", suffix=".part",
-                                        dir=target.parent)
-        self._staged.append((tmp_name, target))
+        self._check_root(target)
+        fd, tmp_name = _stage(target)
+        self._staged.append((tmp_name, target))  # at once: discard() must know it
         with os.fdopen(fd, "wb", buffering=1 << 20) as handle:
             yield handle
             handle.flush()
@@ -105,14 +158,166 @@ class StagedFiles:
             handle.write(data)
 
     def commit(self) -> None:
-        """Rename every staged file into place (each rename is atomic)."""
-        for tmp_name, target in self._staged:
-            os.replace(tmp_name, target)
+        """Move every staged file into place, all or none.
+
+        Raises :class:`InputError` naming the target (not a temporary) when a
+        target is a folder, its folder is not writable, it exists and
+        ``replace`` is off, or a move fails; the targets are then as before.
+        """
+        staged = list(self._staged)
+        for _, target in staged:
+            self._check_target(target)
+        if self.replace:
+            _commit_replacing(staged)
+        else:
+            _commit_exclusive(staged)
         self._staged.clear()
 
     def discard(self) -> None:
         """Remove the temporaries of files not committed."""
         for tmp_name, _ in self._staged:
-            with contextlib.suppress(FileNotFoundError):
+            with contextlib.suppress(OSError):
                 os.unlink(tmp_name)
         self._staged.clear()
+
+    def _check_root(self, target: Path) -> None:
+        if self.root is not None and not is_within(target.parent, self.root):
+            raise InputError(f"lies outside {self.root} (through a symbolic link)",
+                             file=str(target), hint="remove the link or write elsewhere")
+
+    def _check_target(self, target: Path) -> None:
+        self._check_root(target)
+        parent = target.parent
+        if os.path.isdir(target) and not os.path.islink(target):
+            raise InputError("is a folder, so the new file cannot take its place",
+                             file=str(target), hint="move the folder away or choose another name")
+        if not os.access(parent, os.W_OK | os.X_OK):
+            raise InputError("cannot be written: its folder is not writable", file=str(target))
+        if not self.replace and os.path.lexists(target):
+            raise _exists(target)
+
+
+def _exists(target: Path) -> InputError:
+    return InputError("already exists", file=str(target), hint="pass --force to replace it")
+
+
+def _cannot_move(target: Path, exc: OSError) -> InputError:
+    return InputError(f"cannot be written ({exc.strerror or exc}); the files written "
+                      "with it are left as they were", file=str(target))
+
+
+def _identity(path: str | os.PathLike) -> tuple[int, int] | None:
+    """(device, inode) of ``path`` itself (not a link's target), or None if absent."""
+    try:
+        st = os.lstat(path)
+    except FileNotFoundError:
+        return None
+    return st.st_dev, st.st_ino
+
+
+def _commit_replacing(staged: list[tuple[str, Path]]) -> None:
+    """Move each temporary over its target, keeping the old file aside until all moved."""
+    done: list[tuple[Path, str | None, tuple[int, int] | None]] = []
+    current = None
+    try:
+        for tmp_name, target in staged:
+            current = target
+            new = _identity(tmp_name)
+            backup = None
+            if os.path.lexists(target):
+                fd, backup = _stage(target, BACKUP_SUFFIX)  # reserves a unique name
+                os.close(fd)
+                try:
+                    os.replace(target, backup)
+                except BaseException:
+                    with contextlib.suppress(OSError):
+                        os.unlink(backup)
+                    raise
+            done.append((target, backup, new))
+            os.replace(tmp_name, target)
+    except BaseException as exc:
+        _roll_back(done)
+        if isinstance(exc, OSError):
+            raise _cannot_move(current, exc) from None
+        raise
+    for _, backup, _ in done:
+        if backup is not None:
+            with contextlib.suppress(OSError):
+                os.unlink(backup)
+
+
+def _roll_back(done: list[tuple[Path, str | None, tuple[int, int] | None]]) -> None:
+    """Undo the moves of :func:`_commit_replacing`, last first."""
+    for target, backup, new in reversed(done):
+        with contextlib.suppress(OSError):
+            if backup is not None:
+                os.replace(backup, target)
+            elif new is not None and _identity(target) == new:
+                os.unlink(target)  # the target did not exist before this commit
+
+
+def _claim(tmp_name: str, target: Path) -> None:
+    """Make ``target`` name the temporary's file, failing if ``target`` exists."""
+    import errno
+
+    try:
+        os.link(tmp_name, target)
+    except FileExistsError:
+        raise
+    except OSError as exc:
+        if exc.errno not in (errno.EPERM, errno.ENOTSUP, errno.EOPNOTSUPP, errno.ENOSYS,
+                             errno.EMLINK):
+            raise
+        # no hard links on this file system: claim the name, then move the file onto it
+        os.close(os.open(target, os.O_CREAT | os.O_EXCL | os.O_WRONLY, 0o644))
+        os.replace(tmp_name, target)
+
+
+def _commit_exclusive(staged: list[tuple[str, Path]]) -> None:
+    """Claim every target exclusively; on any failure release the ones claimed."""
+    claimed: list[tuple[Path, tuple[int, int] | None]] = []
+    try:
+        for tmp_name, target in staged:
+            new = _identity(tmp_name)
+            try:
+                _claim(tmp_name, target)
+            except FileExistsError:
+                raise _exists(target) from None
+            except OSError as exc:
+                raise _cannot_move(target, exc) from None
+            claimed.append((target, new))
+    except BaseException:
+        for target, new in reversed(claimed):
+            with contextlib.suppress(OSError):
+                if _identity(target) == new:  # still ours: nobody replaced it meanwhile
+                    os.unlink(target)
+        raise
+    for tmp_name, _ in staged:
+        with contextlib.suppress(FileNotFoundError):
+            os.unlink(tmp_name)
+
+
+def find_temporaries(root: str | os.PathLike, targets: Iterable[str] | None = None) -> list[str]:
+    """Our temporaries and backups under ``root`` (paths relative to it, POSIX, sorted).
+
+    Symbolic links to folders are not followed and hidden folders are skipped.
+    """
+    root = Path(root)
+    found = []
+    for folder, dirs, files in os.walk(root):
+        dirs[:] = sorted(d for d in dirs if not d.startswith("."))
+        found += [(Path(folder) / name).relative_to(root).as_posix()
+                  for name in files if is_temporary(name, targets)]
+    return sorted(found)
+
+
+def remove_temporaries(root: str | os.PathLike, targets: Iterable[str] | None = None) -> list[str]:
+    """Delete what :func:`find_temporaries` finds; returns the paths removed."""
+    removed = []
+    for rel in find_temporaries(root, targets):
+        path = Path(root) / rel
+        if is_inside(path, root) and not path.is_symlink():
+            with contextlib.suppress(FileNotFoundError):
+                path.unlink()
+                removed.append(rel)
+    return removed

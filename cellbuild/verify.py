@@ -1,31 +1,42 @@
 """Check a built library against its manifest: rebuild everything and compare bytes.
 
-:func:`verify` reads ``manifest.json``, re-expands every recipe it names,
-rebuilds every structure into a temporary folder and compares, per entry:
+:func:`verify` reads ``manifest.json`` (checked by :mod:`cellbuild.manifest`:
+every path must stay in the library, or the manifest is refused before any
+file it names is read), re-expands every recipe it names, rebuilds every
+structure into a temporary folder and compares, per entry:
 
+* the manifest itself: written by another cellbuild version (``other
+  cellbuild version``: its outputs may differ for that reason alone);
 * the recipe file with the recorded sha256 (``recipe missing``, ``recipe changed``);
 * the rebuilt files with the manifest (``changed``: the same recipe no longer
   gives the same bytes, e.g. after a dependency changed);
 * the files on disk with the manifest (``missing``, ``changed on disk``);
 * the entries: ones the recipes no longer produce (``no longer produced``),
   new ones (``not in manifest``), a changed error (``outcome changed``);
-* the output folder: cellbuild outputs the manifest does not list (``extra``)
-  and recipe files in the source folder it does not know (``new recipe``).
+* the output folder: output-like files the manifest does not list
+  (``extra``), temporaries an interrupted write left (``leftover
+  temporary``) and recipe files in the source folder it does not know
+  (``new recipe``).
 
-Everything matches only when the list of differences is empty.
+Everything matches only when the list of differences is empty. A rebuild that
+cannot write its scratch folder (``TMPDIR`` full or unwritable) is an
+:class:`InputError` naming that folder, not a difference of any recipe.
 """
 from __future__ import annotations
 
-import json
 import os
 import tempfile
 from dataclasses import dataclass
 from pathlib import Path
 from typing import Callable
 
-from .batch import (MANIFEST_NAME, OUTPUT_SUFFIXES, Outcome, Source, discover, listed_paths,
-                    make_source, plan_jobs, run_jobs, sort_outcomes)
+from . import __version__
+from .batch import TEMPORARY_TARGETS, discover, make_source, plan_jobs
 from .errors import InputError
+from .manifest import (MANIFEST_NAME, OUTPUT_SUFFIXES, LibraryPaths, library_paths,
+                       listed_paths, read_manifest)
+from .outcomes import Outcome, Source, sort_outcomes
+from .pool import run_jobs, sigterm_as_interrupt
 
 
 @dataclass(frozen=True)
@@ -60,62 +71,6 @@ class VerifyResult:
         return not self.differences
 
 
-# ----------------------------------------------------------------------------- manifest
-
-
-def read_manifest(path: str | os.PathLike) -> dict:
-    """Load and sanity-check a manifest; :class:`InputError` in one sentence if it
-    is missing, not JSON or not shaped like a cellbuild manifest."""
-    path = Path(path)
-    if path.is_dir():
-        path = path / MANIFEST_NAME
-    try:
-        text = path.read_text(encoding="utf-8")
-    except FileNotFoundError:
-        raise InputError("no manifest here", file=str(path),
-                         hint="build one with `cellbuild batch DIR --out OUT`") from None
-    except (OSError, UnicodeDecodeError) as exc:
-        raise InputError(f"cannot be read ({getattr(exc, 'strerror', None) or exc})",
-                         file=str(path)) from None
-    try:
-        manifest = json.loads(text)
-    except ValueError as exc:
-        raise InputError(f"is not valid JSON ({exc})", file=str(path)) from None
-    problem = _shape_problem(manifest)
-    if problem:
-        raise InputError(f"is not a cellbuild manifest: {problem}", file=str(path),
-                         hint="rebuild it with `cellbuild batch DIR --out OUT`")
-    return manifest
-
-
-def _shape_problem(manifest) -> str | None:
-    """What is wrong with the manifest's structure, or None."""
-    if not isinstance(manifest, dict):
-        return "the top level is not a mapping"
-    for key, kind in (("cellbuild", str), ("source", str), ("structures", list)):
-        if not isinstance(manifest.get(key), kind):
-            return f"`{key}` is missing or not {kind.__name__}"
-    for i, entry in enumerate(manifest["structures"]):
-        where = f"structures[{i}]"
-        if not isinstance(entry, dict):
-            return f"`{where}` is not a mapping"
-        for key, kind in (("name", str), ("recipe", str), ("outputs", dict)):
-            if not isinstance(entry.get(key), kind):
-                return f"`{where}.{key}` is missing or not {kind.__name__}"
-        for fmt, info in entry["outputs"].items():
-            if not (isinstance(info, dict) and isinstance(info.get("path"), str)
-                    and isinstance(info.get("sha256"), str)):
-                return f"`{where}.outputs.{fmt}` lacks a path or a sha256"
-            if not _is_inside(info["path"]):
-                return f"`{where}.outputs.{fmt}.path` leaves the manifest's folder"
-    return None
-
-
-def _is_inside(rel: str) -> bool:
-    parts = Path(rel).parts
-    return bool(parts) and not Path(rel).is_absolute() and ".." not in parts
-
-
 # ----------------------------------------------------------------------------- verify
 
 
@@ -124,30 +79,79 @@ def verify(manifest_path: str | os.PathLike, *, workers: int | None = None,
            on_done: Callable[[Outcome], None] | None = None) -> VerifyResult:
     """Rebuild every entry of the manifest in a temporary folder and compare.
 
-    Raises :class:`InputError` for a missing or malformed manifest; every other
-    problem is a :class:`Difference` in the result.
+    Raises :class:`InputError` for a missing, malformed or unsafe manifest and
+    for a scratch folder that cannot take the rebuild; every other problem is
+    a :class:`Difference` in the result.
     """
-    from .batch import default_workers
+    from .pool import default_workers
 
     manifest_path = Path(manifest_path)
     if manifest_path.is_dir():
         manifest_path = manifest_path / MANIFEST_NAME
     manifest = read_manifest(manifest_path)
+    paths = library_paths(manifest, manifest_path)
     root = manifest_path.parent
     entries = manifest["structures"]
     diffs: list[Difference] = []
+    if manifest["cellbuild"] != __version__:
+        diffs.append(Difference(MANIFEST_NAME, "other cellbuild version", None,
+                                f"written by cellbuild {_short(manifest['cellbuild'])}, "
+                                f"this is {__version__}; outputs may differ for that alone"))
     diffs += _check_disk(root, entries)
     diffs += _check_extra(root, manifest)
-    sources, recipe_diffs = _recipe_sources(root, manifest)
+    sources, recipe_diffs = _recipe_sources(root, paths, manifest)
     diffs += recipe_diffs
-    with tempfile.TemporaryDirectory(prefix="cellbuild-verify-") as tmp:
+    scratch = _scratch_root()
+    _check_scratch_space(scratch, entries)
+    try:
+        tmp_dir = tempfile.TemporaryDirectory(prefix="cellbuild-verify-", dir=scratch)
+    except OSError as exc:
+        raise _scratch_error(scratch, exc.strerror or str(exc)) from None
+    with tmp_dir as tmp, sigterm_as_interrupt():
         jobs, failed = plan_jobs(sources, Path(tmp))
         if on_planned:
             on_planned(len(jobs) + len(failed))
         rebuilt = failed + run_jobs(jobs, workers or default_workers(), on_done)
+        trouble = next((o.write_problem for o in rebuilt if o.write_problem), None)
+        if trouble is not None:
+            raise _scratch_error(scratch, trouble)
         diffs += _compare(root, Path(tmp), entries, sort_outcomes(rebuilt))
     diffs.sort(key=lambda d: d.entry)  # stable: groups each entry's lines, in check order
     return VerifyResult(diffs, len(entries))
+
+
+def _short(text: str) -> str:
+    return repr(text) if len(text) <= 40 else repr(text[:37] + "...")
+
+
+def _scratch_root() -> str:
+    """The folder the rebuild goes to (``TMPDIR`` or the system's temporary folder)."""
+    try:
+        return tempfile.gettempdir()
+    except FileNotFoundError as exc:  # no usable temporary folder at all
+        raise InputError("no usable temporary folder for the rebuild", key="TMPDIR",
+                         value=os.environ.get("TMPDIR", ""),
+                         hint="set TMPDIR to a writable folder with room") from exc
+
+
+def _scratch_error(scratch: str, why: str) -> InputError:
+    return InputError(f"cannot take the rebuild ({why}); this is a problem of that folder, "
+                      "not of the library", key="TMPDIR", value=scratch,
+                      hint="free space there or set TMPDIR to a writable folder with room")
+
+
+def _check_scratch_space(scratch: str, entries: list[dict]) -> None:
+    """Refuse before rebuilding when the scratch folder cannot hold the files again."""
+    import shutil
+
+    needed = sum(info.get("bytes") or 0 for e in entries for info in e["outputs"].values())
+    try:
+        free = shutil.disk_usage(scratch).free
+    except OSError:
+        return  # the rebuild will tell
+    if needed > free:
+        raise _scratch_error(scratch, f"the rebuild needs about {needed / 2**20:,.1f} MB, "
+                                      f"{free / 2**20:,.1f} MB are free")
 
 
 def _check_disk(root: Path, entries: list[dict]) -> list[Difference]:
@@ -167,23 +171,33 @@ def _check_disk(root: Path, entries: list[dict]) -> list[Difference]:
 
 
 def _check_extra(root: Path, manifest: dict) -> list[Difference]:
-    """cellbuild output files under the manifest's folder that it does not list."""
+    """Output-like files under the manifest's folder that it does not list, and
+    temporaries left by an interrupted write."""
+    from .fileio import is_temporary
+
     listed = listed_paths(manifest)
     diffs = []
     for folder, dirs, files in os.walk(root):
         dirs[:] = sorted(d for d in dirs if not d.startswith("."))
         for name in sorted(files):
-            if name.endswith(OUTPUT_SUFFIXES) and not name.startswith("."):
-                rel = (Path(folder) / name).relative_to(root).as_posix()
-                if rel not in listed:
-                    diffs.append(Difference(rel, "extra", None,
-                                            "a cellbuild output the manifest does not list"))
+            rel = (Path(folder) / name).relative_to(root).as_posix()
+            if is_temporary(name, TEMPORARY_TARGETS):
+                diffs.append(Difference(rel, "leftover temporary", None,
+                                        "left by an interrupted write; the next "
+                                        "`cellbuild batch` into this folder removes it"))
+            elif name.endswith(OUTPUT_SUFFIXES) and not name.startswith(".") \
+                    and rel not in listed:
+                diffs.append(Difference(rel, "extra", None, "not listed in the manifest"))
     return diffs
 
 
-def _recipe_sources(root: Path, manifest: dict) -> tuple[list[Source], list[Difference]]:
+def _recipe_sources(root: Path, paths: LibraryPaths,
+                    manifest: dict) -> tuple[list[Source], list[Difference]]:
     """The recipes to rebuild (those the manifest names that still exist, in the
-    batch's order) and the differences found on the recipes themselves."""
+    batch's order) and the differences found on the recipes themselves.
+
+    Every recipe path was checked by :func:`cellbuild.manifest.library_paths`:
+    it lies in the source folder, which lies in the library."""
     import hashlib
 
     source_dir = root / manifest["source"]
@@ -203,12 +217,8 @@ def _recipe_sources(root: Path, manifest: dict) -> tuple[list[Source], list[Diff
                 diffs.append(Difference(entry["name"], "recipe changed", recipe,
                                         f"sha256 {entry['recipe_sha256'][:12]}... in the "
                                         f"manifest, {sha[:12]}... now"))
-        if not _is_under(path, source_dir):
-            diffs.append(Difference(recipe, "recipe outside the source folder", None,
-                                    f"not under {manifest['source']}"))
-            continue
         sources.append(make_source(path, source_dir, root, display_root=source_dir))
-    if source_dir.is_dir():
+    if paths.source_dir.is_dir():
         known = {s.recipe for s in sources} | set(by_recipe)
         for found in discover(source_dir, root, skip=root):
             if found.recipe not in known:
@@ -221,11 +231,6 @@ def _source_key(root: Path, source_dir: Path, recipe: str) -> str:
     """Sort key reproducing the batch's order: path relative to the source folder."""
     return Path(os.path.relpath(os.path.abspath(root / recipe),
                                 os.path.abspath(source_dir))).as_posix()
-
-
-def _is_under(path: Path, folder: Path) -> bool:
-    a, b = os.path.abspath(path), os.path.abspath(folder)
-    return os.path.commonpath([a, b]) == b and a != b
 
 
 def _compare(root: Path, tmp: Path, entries: list[dict],
@@ -280,11 +285,12 @@ def _compare_entry(root: Path, tmp: Path, entry: dict, outcome: Outcome) -> list
 def _report_fields_differing(on_disk: Path, rebuilt: Path) -> list[str]:
     """Top-level report fields that differ (to tell a version bump from a new
     structure); empty if the file on disk cannot be read."""
+    from .manifest import read_json
+
     try:
-        a = json.loads(on_disk.read_text(encoding="utf-8"))
-        b = json.loads(rebuilt.read_text(encoding="utf-8"))
-    except (OSError, ValueError):
+        a, b = read_json(on_disk), read_json(rebuilt)
+    except InputError:
         return []
     if not isinstance(a, dict) or not isinstance(b, dict):
         return []
-    return sorted(k for k in a.keys() | b.keys() if a.get(k) != b.get(k))
+    return sorted(str(k)[:80] for k in a.keys() | b.keys() if a.get(k) != b.get(k))
