@@ -311,3 +311,40 @@ def test_an_unexpected_error_in_one_structure_is_recorded_not_raised(tmp_path, m
     assert [o.status for o in result.outcomes] == ["error", "passed"]
     assert "internal error (RuntimeError: simulated bug)" in result.outcomes[0].error
     assert result.exit_code == 2
+
+
+def test_warnings_reach_the_manifest_and_junit(tmp_path, cli):
+    """A structure that passes with a warning is marked in the manifest, in JUnit and
+    on its line. Cs fcc with a = 21 A: outside the 1-20 A range cellbuild calls
+    plausible, yet its nearest-neighbour distance a/sqrt(2) = 14.85 A (fcc geometry,
+    Kittel ch. 1) is below 3.2 x twice the covalent radius of Cs (2.44 A, Cordero et
+    al. 2008), so it is built, with a warning."""
+    lib = tmp_path / "lib"
+    _write(lib / "wide.yaml", recipe_dict("Cs", "fcc", 21.0, name="wide", outputs=["xyz"]))
+    _write(lib / "ok.yaml", recipe_dict(name="ok", outputs=["xyz"]))
+    manifests = []
+    for workers in ("1", "2"):
+        out = tmp_path / f"out{workers}"
+        junit = tmp_path / f"junit{workers}.xml"
+        result = cli("batch", lib, "--out", out, "--workers", workers, "--junit", junit)
+        assert result.exit_code == 0, result.output
+        manifests.append((out / "manifest.json").read_bytes())
+    # byte-stable whatever the number of workers, apart from the creation time
+    one, two = (json.loads(m) for m in manifests)
+    one.pop("created"), two.pop("created")
+    assert one == two
+    entries = {e["name"]: e for e in one["structures"]}
+    report = json.loads((tmp_path / "out1" / "wide.report.json").read_text())
+    assert report["warnings"] and entries["wide"]["warnings"] == report["warnings"]
+    assert "outside the plausible range" in report["warnings"][0]
+    assert entries["wide"]["passed"] is True
+    assert "warnings" not in entries["ok"]  # only when there are some
+    assert "wide  32 atoms  passed; 1 warning(s): lattice constant 21" in result.output
+    cases = {c.get("name"): c for c in ET.parse(tmp_path / "junit2.xml").getroot()
+             .findall("testcase")}
+    props = cases["wide"].findall("properties/property")
+    assert [(p.get("name"), p.get("value")) for p in props] == [("warning", report["warnings"][0])]
+    assert "with 1 warning(s)" in cases["wide"].find("system-out").text
+    assert report["warnings"][0] in cases["wide"].find("system-err").text
+    assert cases["ok"].find("properties") is None and cases["ok"].find("system-err") is None
+    assert cli("verify", tmp_path / "out1", "--workers", "1").exit_code == 0
