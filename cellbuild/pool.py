@@ -101,7 +101,16 @@ def _shown_path(filename, job: Job) -> str:
 
     if is_temporary(name):  # the user never asked for that file: name the folder
         return job.out_dir
-    return os.fsdecode(filename)
+    return _in_library(os.fsdecode(filename), job)
+
+
+def _in_library(path: str, job: Job) -> str:
+    """``path`` relative to the library (OUT) when inside the job's folder: the
+    message goes into the manifest, which must not depend on how OUT was named."""
+    if not _in_folder(path, job.out_dir):
+        return path
+    prefix = f"{job.source.rel_dir}/" if job.source.rel_dir else ""
+    return prefix + Path(os.path.relpath(path, job.out_dir)).as_posix()
 
 
 def _input_error(job: Job, exc: InputError, seconds: float) -> Outcome:
@@ -113,8 +122,8 @@ def _input_error(job: Job, exc: InputError, seconds: float) -> Outcome:
         # about a file in the output folder (StagedFiles.commit), not the recipe:
         # keep that file's name in the message while the recipe is named as usual
         problem = exc.message
-        exc = InputError(exc.message, key="--out", value=exc.file, hint=exc.hint,
-                         file=job.source.recipe)
+        exc = InputError(exc.message, key="--out", value=_in_library(exc.file, job),
+                         hint=exc.hint, file=job.source.recipe)
     return error_outcome(job.name, job.source, job.recipe_sha256, exc, job.sweep, seconds,
                          write_problem=problem)
 
