@@ -5,9 +5,9 @@ it). Here nothing is known but the coordinates, so everything is inferred:
 
 1. **Pair distribution.** Distances of all pairs (atoms and periodic images)
    up to ``SHELL_RANGE`` x the mean spacing ``s = (V/N)^(1/3)``, from
-   :func:`cellbuild.neighbours.pair_distances`, sampling centre atoms above
-   ``MAX_SAMPLED_PAIRS`` pairs so that a million atoms cost a fraction of a
-   second.
+   :func:`cellbuild.neighbours.pair_sample`, sampling centre atoms above
+   ``MAX_SAMPLED_PAIRS`` pairs so that a million atoms (or a thousand on top of
+   one another) cost a fraction of a second (:mod:`cellbuild.pair_shells`).
 2. **Shells.** The per-atom neighbour histogram is smoothed (Gaussian, width
    ``SMOOTH_FRACTION`` s) and its peaks are the shells; the boundary between
    two shells is the smoothed minimum between their peaks, moved to the middle
@@ -17,60 +17,52 @@ it). Here nothing is known but the coordinates, so everything is inferred:
    looking like a peak (g divides by r^2, which is small there).
 3. **Cutoff.** The first boundary: the first minimum of the pair distribution
    after the first peak (``--cutoff`` overrides it).
-4. **Lattice.** The most common coordination at the cutoff and the ratio of
-   the first two shell distances are compared with sc, bcc, fcc and diamond
-   (ratios from the basis geometry in :mod:`cellbuild.lattices`); the implied
-   lattice constant must also give about the right number of sites for the
-   volume. Species are ignored: rock salt matches sc, CsCl bcc, zincblende
-   diamond (the space group tells them apart).
-5. **Defects** against the matched lattice: atoms with fewer neighbours than
-   the ideal coordination are vacancy-like; atoms with more, or closer than
-   ``CROWDED_FRACTION`` of the nearest-neighbour distance to another, are
-   crowded.
-6. **Space group** of the whole cell with spglib, after removing pure
-   translations along the cell vectors (a 63^3 supercell becomes its
-   conventional cell). spglib's cost grows about as N^2 (measured: 4,000 atoms
-   in 1.4 s, 32,000 in 72 s; with displaced atoms 4,000 take 17 s), so cells
-   that do not reduce below ``SPGLIB_MAX_ATOMS`` atoms report no space group
-   and say why.
+4. **Lattice.** The cumulative neighbour counts between the ideal shells of
+   sc, bcc, fcc, diamond and ideal hcp are compared with the distribution,
+   at the robust nearest-neighbour distance (median of the first shell); the
+   implied lattice constant must also give about the right number of sites
+   for the volume (:mod:`cellbuild.lattice_match`). Species are ignored: rock
+   salt matches sc, CsCl bcc, zincblende diamond (the space group tells them
+   apart).
+5. **Defects** against the matched lattice: vacancy-like atoms (too few
+   neighbours), crowded atoms (too many, or closer than ``CROWDED_FRACTION``
+   of the nearest-neighbour distance to another) and, among these, the
+   interstitial-like atoms that sit on no lattice site.
+6. **Space group** of the cell reduced to its smallest repeating unit, with
+   spglib (:mod:`cellbuild.repeating_unit`).
+7. **Checks**: ``min_distance``, ``physical_spacing`` (nearest-neighbour
+   distances against covalent radii, :mod:`cellbuild.spacing`), for CIFs
+   ``site_occupancy``, and on request ``potential_cutoff`` and
+   ``expected_lattice``.
+
+Pair searches are bounded (:mod:`cellbuild.neighbours`): a file whose atoms
+overlap by the million, or a ``--cutoff`` that would count billions of pairs,
+is refused with a sentence saying how many pairs there would be.
 
 All lengths are in Angstrom, volumes in Angstrom^3, densities in g/cm^3.
 """
 from __future__ import annotations
 
 import math
-from dataclasses import dataclass
-from fractions import Fraction
 
 import numpy as np
 
-from . import neighbours
-from .audit import MAX_CLOSE_PAIRS_LISTED, Check, histogram, spacegroup
+from . import neighbours, spacing as physical
+from .audit import MAX_CLOSE_PAIRS_LISTED, Check, histogram
 from .build import ANGSTROM3_TO_CM3, AVOGADRO, standard_atomic_weight
-from .lattices import LATTICES, shells as lattice_shells
+from .errors import InputError
+from .lattice_match import (CROWDED_FRACTION, PATTERN_NAMES, LatticeMatch, defects_note,
+                            first_shell, infer_defects, match_lattice, site_count_reliable)
+from .pair_shells import PairDistribution, find_shells, pair_distribution
+from .repeating_unit import repeating_unit, space_group
 from .structure import Structure
 
-#: Pair distances are collected up to this many mean spacings (V/N)^(1/3):
-#: enough for at least three closed shells of sc, bcc, fcc and diamond
-#: (fcc's fifth shell sits at 2.51 spacings).
-SHELL_RANGE = 2.7
-#: Above this many pairs, centre atoms are sampled (seeded) for the distribution.
-MAX_SAMPLED_PAIRS = 500_000
-#: Histogram bin width and smoothing width, in mean spacings.
-BIN_FRACTION = 1.0 / 400.0
-SMOOTH_FRACTION = 0.02
-#: A shell peak must stand out by this fraction of the highest smoothed peak,
-#: and two peaks closer than ``PEAK_SEPARATION`` spacings are one shell (both
-#: keep sampling noise from splitting a broadened shell).
-PEAK_PROMINENCE = 0.08
-PEAK_SEPARATION = 0.06
-#: Relative tolerance on the ratio of the second to the first shell distance.
-RATIO_TOLERANCE = 0.03
-#: Atoms per site implied by the lattice constant and the volume must lie
-#: within this fraction of 1 (allows a few per cent vacancies or interstitials).
-SITE_FILL_TOLERANCE = 0.10
-#: Closer than this fraction of the nearest-neighbour distance: crowded.
-CROWDED_FRACTION = 0.85
+__all__ = ["EXPECT_CHOICES", "LatticeMatch", "PairDistribution", "analyse", "density",
+           "describe", "find_shells", "inspect_file", "inspect_structure", "pair_distribution",
+           "plot_paths", "repeating_unit", "space_group"]
+
+#: Every lattice name ``inspect --expect`` accepts.
+EXPECT_CHOICES = PATTERN_NAMES
 #: The min_distance check: no pair closer than this fraction of the first
 #: shell distance, or than the floor (Angstrom) when no shell is found.
 MIN_DISTANCE_FRACTION = 0.5
@@ -78,56 +70,12 @@ MIN_DISTANCE_FLOOR = 0.5
 #: Cutoff used when the distribution has no minimum after a first peak, in
 #: mean spacings (between the first two shells of every lattice here).
 FALLBACK_CUTOFF = 1.25
-#: Symmetry tolerance (Angstrom) for spglib and for the translation search.
-SYMPREC = 0.01
-#: Largest cell (after removing pure translations) handed to spglib.
-SPGLIB_MAX_ATOMS = 1000
 #: Pairs and atom indices listed in the result (all are counted).
 CLOSEST_PAIRS_LISTED = 5
-ATOMS_LISTED = 20
-
-
-@dataclass(frozen=True)
-class PairDistribution:
-    """Pair distances and what one of them stands for.
-
-    Attributes:
-        distances: ascending pair distances, Angstrom.
-        weight: neighbours per atom that one distance represents (2/N when
-            every pair is counted once, 1/m when m centre atoms were sampled).
-        number_density: atoms per Angstrom^3.
-        r_max: distances were collected below this, Angstrom.
-    """
-
-    distances: np.ndarray
-    weight: float
-    number_density: float
-    r_max: float
-
-    def per_atom_histogram(self, width: float) -> tuple[np.ndarray, np.ndarray]:
-        """(bin edges, neighbours per atom in each bin) for bins ``width`` Angstrom wide."""
-        n_bins = max(1, math.ceil(self.r_max / width))
-        edges = np.arange(n_bins + 1) * width
-        index = np.minimum((self.distances / width).astype(np.int64), n_bins - 1)
-        return edges, np.bincount(index, minlength=n_bins) * self.weight
-
-    def g(self, width: float) -> tuple[np.ndarray, np.ndarray]:
-        """(bin centres, radial distribution g(r)): neighbours per atom in each
-        spherical shell over the number an ideal gas of the same density holds."""
-        edges, per_atom = self.per_atom_histogram(width)
-        ideal = self.number_density * (4.0 / 3.0) * math.pi * np.diff(edges ** 3)
-        return 0.5 * (edges[1:] + edges[:-1]), per_atom / ideal
-
-
-@dataclass(frozen=True)
-class LatticeMatch:
-    """The cubic lattice a structure matches, with its implied lattice constant (A)."""
-
-    name: str
-    lattice_constant: float
-    nearest: float        # ideal nearest-neighbour distance, Angstrom
-    coordination: int     # ideal first-shell coordination
-    sites: float          # lattice sites the volume holds at this lattice constant
+#: Atoms whose nearest neighbour is measured for the typical spacing (seeded sample).
+SPACING_SAMPLE = 2000
+#: Crowded atoms beyond which interstitial-like atoms are not told apart.
+MAX_CROWDED_EXAMINED = 200_000
 
 
 # ----------------------------------------------------------------------------- entry points
@@ -143,7 +91,8 @@ def inspect_structure(structure: Structure, *, file: str, cutoff: float | None =
 
 def analyse(structure: Structure, *, file: str, cutoff: float | None = None,
             expect: str | None = None, potential_cutoff: float | None = None,
-            workers: int = 2, source: dict | None = None) -> tuple[dict, PairDistribution]:
+            workers: int = 2, source: dict | None = None,
+            partial_occupancy: list[dict] | None = None) -> tuple[dict, PairDistribution]:
     """Inspect ``structure`` (read from ``file``); returns the result and the pair
     distribution (for the plot).
 
@@ -154,18 +103,37 @@ def analyse(structure: Structure, *, file: str, cutoff: float | None = None,
             every perpendicular box width is at least 2R).
         workers: threads of the neighbour engine.
         source: extra fields placed after ``file`` (format, reader, warnings).
+        partial_occupancy: for a CIF, its atom-site rows with occupancy below 1
+            (check ``site_occupancy``); None for other formats.
+
+    Raises:
+        InputError: when a pair search would exceed its bounds (atoms on top of
+            one another by the million, a ``--cutoff`` far beyond the cell).
     """
+    try:
+        return _analyse(structure, file, cutoff, expect, potential_cutoff, workers, source,
+                        partial_occupancy)
+    except neighbours.PairLimitError as exc:
+        raise InputError(f"holds {exc}, too many to examine", file=file) from None
+
+
+def _analyse(structure, file, cutoff, expect, potential_cutoff, workers, source,
+             partial_occupancy):
     cell, positions = structure.cell, structure.positions
     volume, n = structure.volume, structure.n_atoms
     spacing = (volume / n) ** (1.0 / 3.0)
     distribution = pair_distribution(structure, spacing, workers)
     shells, boundaries = find_shells(distribution, spacing)
+    threshold, threshold_source = _distance_threshold(shells)
+    _refuse_overlap(distribution, threshold, n, file)
     ci, cj, cd = _closest_pairs(structure, distribution, workers)
     cut, cut_source = _choose_cutoff(cutoff, boundaries, spacing)
+    if cutoff is not None:
+        _refuse_cutoff(structure, distribution, cutoff)
     counts = neighbours.coordination_counts(cell, positions, cut, workers=workers)
-    match, match_info = match_lattice(counts, shells, volume, n)
+    first = first_shell(distribution.distances, shells, boundaries)
+    match, match_info = match_lattice(counts, shells, first, distribution, volume, n)
 
-    threshold, threshold_source = _distance_threshold(shells)
     crowded_r = CROWDED_FRACTION * match.nearest if match else 0.0
     pi, pj, pd = _pairs_below(structure, max(threshold, crowded_r), float(cd[0]), workers)
 
@@ -176,15 +144,25 @@ def analyse(structure: Structure, *, file: str, cutoff: float | None = None,
     result["coordination"] = _coordination_facts(structure, counts, cut, cut_source)
     result["lattice"] = match.name if match else None
     result["lattice_match"] = match_info
-    result["defects"] = infer_defects(counts, match, pi, pj, pd) if match else None
-    if match and not _site_count_reliable(shells, n):
-        result["defects"]["estimated_vacancies_from_sites"] = None  # see the note
+    result["defects"] = None
     if match:
-        result["defects"]["note"] = _defects_note(shells, result["defects"])
+        close = pd < crowded_r
+        result["defects"] = infer_defects(counts, match, pi, pj, pd, _crowded_neighbours(
+            structure, counts, match, cut, pi[close], pj[close]))
+        if not site_count_reliable(match, first, n):
+            result["defects"]["estimated_vacancies_from_sites"] = None  # see the note
+        result["defects"]["note"] = defects_note(shells, result["defects"], match)
     result["space_group"], note = space_group(structure)
     if note:
         result["space_group_note"] = note
-    checks = [_min_distance_check(cd, ci, cj, pd, threshold, threshold_source)]
+    typical = _typical_spacing(structure, distribution, workers)
+    result["nearest_neighbour_median"] = typical[0]
+    checks = [_min_distance_check(cd, ci, cj, pd, threshold, threshold_source),
+              _physical_spacing_check(structure, (float(cd[0]), int(ci[0]), int(cj[0])),
+                                      typical)]
+    if partial_occupancy is not None:
+        result["partial_occupancy"] = partial_occupancy[:CLOSEST_PAIRS_LISTED]
+        checks.append(_site_occupancy_check(partial_occupancy))
     if potential_cutoff is not None:
         checks.append(_potential_cutoff_check(cell, potential_cutoff))
     if expect is not None:
@@ -194,101 +172,52 @@ def analyse(structure: Structure, *, file: str, cutoff: float | None = None,
     return result, distribution
 
 
+# ----------------------------------------------------------------------------- bounds
+
+
+def _refuse_overlap(distribution: PairDistribution, threshold: float, n: int, file: str) -> None:
+    """InputError when the sampled distribution says that more pairs than a pair list
+    holds are closer than the min_distance threshold (the atoms overlap en masse)."""
+    below = distribution.neighbours_below(threshold) * n / 2.0
+    if below > neighbours.MAX_LISTED_PAIRS:
+        raise InputError(f"has about {below:,.0f} pairs closer than {threshold:.4g} A: the file "
+                         "overlaps itself (atoms on top of one another)", file=file)
+
+
+def _refuse_cutoff(structure: Structure, distribution: PairDistribution, cutoff: float) -> None:
+    """InputError when ``--cutoff`` would have the neighbour count visit more pairs
+    than it handles: counted in the distribution where it reaches, else estimated
+    from the density."""
+    n = structure.n_atoms
+    if cutoff < distribution.r_max:
+        pairs = distribution.neighbours_below(cutoff) * n / 2.0
+    else:
+        pairs = neighbours.uniform_pairs(structure.cell, n, cutoff)
+    if pairs > neighbours.MAX_COUNTED_PAIRS:
+        raise InputError(f"would list about {pairs:,.0f} pairs, more than the "
+                         f"{neighbours.MAX_COUNTED_PAIRS:,} a neighbour count handles",
+                         key="--cutoff", value=cutoff,
+                         hint="give a cutoff of a few neighbour shells")
+
+
+def _crowded_neighbours(structure: Structure, counts: np.ndarray, match: LatticeMatch,
+                        cut: float, close_i: np.ndarray, close_j: np.ndarray):
+    """(i, j, distance) with j within the cutoff of a crowded atom i (more than
+    the ideal coordination, or in a close pair ``close_i``/``close_j``); None
+    when there are too many such atoms to examine."""
+    crowded = counts > match.coordination
+    crowded[close_i] = True
+    crowded[close_j] = True
+    centres = np.flatnonzero(crowded)
+    if centres.size > MAX_CROWDED_EXAMINED:
+        return None
+    try:
+        return neighbours.pairs_of(structure.cell, structure.positions, centres, cut)
+    except neighbours.PairLimitError:
+        return None
+
+
 # ----------------------------------------------------------------------------- distances
-
-
-def pair_distribution(structure: Structure, spacing: float, workers: int = 2) -> PairDistribution:
-    """Pair distances up to ``SHELL_RANGE`` mean spacings (sampled centres when many)."""
-    cell, n = structure.cell, structure.n_atoms
-    r_max = SHELL_RANGE * spacing
-    centres = neighbours.sampled_centre_count(cell, n, r_max, MAX_SAMPLED_PAIRS)
-    distances = neighbours.pair_distances(cell, structure.positions, r_max, workers=workers,
-                                          max_pairs=MAX_SAMPLED_PAIRS)
-    # every pair once (2/N per distance) or each sampled centre's neighbours (1/m)
-    weight = 2.0 / n if centres >= n else 1.0 / centres
-    return PairDistribution(distances, weight, n / structure.volume, r_max)
-
-
-def find_shells(distribution: PairDistribution, spacing: float) -> tuple[list[dict], list[float]]:
-    """Neighbour shells and the boundaries between them (Angstrom).
-
-    Returns shells as ``{"distance", "count", "spread"}`` (mean distance, mean
-    neighbours per atom, standard deviation of the distances) and the radii
-    that separate shell k from shell k + 1. Only shells closed by a minimum
-    on their far side are returned; the last peak before ``r_max`` may be cut.
-    """
-    width = spacing * BIN_FRACTION
-    _, per_atom = distribution.per_atom_histogram(width)
-    smooth = _smoothed(per_atom, SMOOTH_FRACTION / BIN_FRACTION)
-    if smooth.max() <= 0.0:
-        return [], []
-    peaks = _peaks(smooth, PEAK_PROMINENCE * smooth.max(),
-                   max(1, int(PEAK_SEPARATION / BIN_FRACTION)))
-    if len(peaks) < 2:
-        return [], []
-    d = distribution.distances
-    boundaries = []
-    for p, q in zip(peaks[:-1], peaks[1:]):
-        low = p + int(np.argmin(smooth[p:q + 1]))
-        boundaries.append(_gap_middle(d, (low + 0.5) * width, width))
-    # below the first peak: as far as the first boundary lies above it, so that
-    # a rare overlapping pair is not averaged into the first shell
-    first_peak = (peaks[0] + 0.5) * width
-    edges = [max(0.0, 2.0 * first_peak - boundaries[0])] + boundaries
-    shells = []
-    for lo, hi in zip(edges[:-1], edges[1:]):
-        members = d[np.searchsorted(d, lo):np.searchsorted(d, hi)]
-        if members.size == 0:
-            continue
-        shells.append({"distance": float(members.mean()),
-                       "count": round(float(members.size * distribution.weight), 3),
-                       "spread": float(members.std())})
-    return shells, boundaries
-
-
-def _smoothed(values: np.ndarray, sigma: float) -> np.ndarray:
-    """Gaussian smoothing with standard deviation ``sigma`` bins, zeros beyond the ends.
-
-    (numpy rather than scipy.signal / scipy.ndimage: importing those costs up to
-    0.9 s, more than the smoothing of a million atoms' distances.)
-    """
-    reach = int(math.ceil(4.0 * sigma))
-    kernel = np.exp(-0.5 * (np.arange(-reach, reach + 1) / sigma) ** 2)
-    smooth = np.convolve(values, kernel / kernel.sum(), mode="full")
-    return smooth[reach:reach + len(values)]
-
-
-def _peaks(y: np.ndarray, prominence: float, separation: int) -> np.ndarray:
-    """Indices of the local maxima of ``y`` at least ``separation`` bins from a higher
-    one and standing at least ``prominence`` above the higher of the two lowest
-    points that separate them from higher ground on either side, ascending."""
-    inner = np.flatnonzero((y[1:-1] > y[:-2]) & (y[1:-1] >= y[2:])) + 1
-    kept: list[int] = []
-    for i in sorted(inner.tolist(), key=lambda k: -y[k]):  # highest first
-        if all(abs(i - k) >= separation for k in kept) and _prominence(y, i) >= prominence:
-            kept.append(i)
-    return np.array(sorted(kept), dtype=np.int64)
-
-
-def _prominence(y: np.ndarray, i: int) -> float:
-    """Height of peak ``i`` above its higher base: on each side, the lowest value
-    before the curve rises above y[i] again (or ends)."""
-    higher = np.flatnonzero(y > y[i])
-    left_end = higher[higher < i].max() if np.any(higher < i) else 0
-    right_end = higher[higher > i].min() if np.any(higher > i) else len(y) - 1
-    base = max(y[left_end:i + 1].min(), y[i:right_end + 1].min())
-    return float(y[i] - base)
-
-
-def _gap_middle(distances: np.ndarray, r: float, width: float) -> float:
-    """``r``, or the middle of the empty stretch of distances around it if there is one
-    (a perfect crystal: the cutoff falls midway between two shells)."""
-    k = int(np.searchsorted(distances, r))
-    if 0 < k < len(distances):
-        lo, hi = float(distances[k - 1]), float(distances[k])
-        if hi - lo >= 2.0 * width:
-            return 0.5 * (lo + hi)
-    return float(r)
 
 
 def _choose_cutoff(cutoff: float | None, boundaries: list[float],
@@ -333,220 +262,73 @@ def _distance_threshold(shells: list[dict]) -> tuple[float, str]:
     return MIN_DISTANCE_FLOOR, f"absolute floor {MIN_DISTANCE_FLOOR} A: no neighbour shell found"
 
 
-# ----------------------------------------------------------------------------- lattice, defects
 
 
-def match_lattice(counts: np.ndarray, shells: list[dict], volume: float,
-                  n_atoms: int) -> tuple[LatticeMatch | None, dict]:
-    """The cubic lattice whose coordination, shell ratio and site density fit.
-
-    Returns the match (or None) and the numbers it was judged on, with a
-    sentence saying why when nothing matched.
-    """
-    if len(shells) < 2 or counts.size == 0:
-        return None, {"reason": "fewer than two neighbour shells were found"}
-    z = int(np.bincount(counts, minlength=1).argmax())
-    ratio = shells[1]["distance"] / shells[0]["distance"]
-    info = {"coordination": z, "shell_ratio": ratio}
-    tried = []
-    for name, lattice in LATTICES.items():
-        geometry = lattice_shells(name)
-        ideal = geometry.distances[1] / geometry.distances[0]
-        tried.append(f"{name} {geometry.coordination}/{ideal:.4f}")
-        if z != geometry.coordination or abs(ratio / ideal - 1.0) > RATIO_TOLERANCE:
-            continue
-        a = _nearest_distance(shells[0]) / geometry.nearest
-        sites = volume * lattice.n_basis / a ** 3
-        info.update(lattice_constant=a, sites=sites, site_fill=n_atoms / sites)
-        if abs(n_atoms / sites - 1.0) > SITE_FILL_TOLERANCE:
-            info["reason"] = (f"coordination and shell ratio fit {name}, but its lattice constant "
-                              f"{a:.4f} A gives {sites:.1f} sites for {n_atoms} atoms")
-            return None, info
-        return LatticeMatch(name, a, geometry.nearest * a, geometry.coordination, sites), info
-    info["reason"] = (f"most common coordination {z} and shell ratio d2/d1 = {ratio:.4f} fit "
-                      f"none of (coordination/ratio) {', '.join(tried)} within "
-                      f"{RATIO_TOLERANCE:.0%}")
-    return None, info
+# ----------------------------------------------------------------------------- physical spacing
 
 
-def _nearest_distance(shell: dict) -> float:
-    """First-shell distance (A) corrected for displaced atoms.
-
-    Displacements across a bond of length d, with spread sigma along it, also
-    spread across it and lengthen the mean distance by about sigma^2 / d
-    (isotropic displacements); perfect crystals are unaffected.
-    """
-    return shell["distance"] - shell["spread"] ** 2 / shell["distance"]
-
-
-def _site_count_reliable(shells: list[dict], n_atoms: int) -> bool:
-    """Whether sites = V n_basis / a^3 is good to half a site: its relative error is
-    3x that of a, taken as no better than the displacement correction (sigma/d)^2."""
-    relative = (shells[0]["spread"] / shells[0]["distance"]) ** 2
-    return 3.0 * relative * n_atoms < 0.5
-
-
-def infer_defects(counts: np.ndarray, match: LatticeMatch, pair_i: np.ndarray,
-                  pair_j: np.ndarray, pair_d: np.ndarray) -> dict:
-    """Vacancy-like and crowded atoms against the ideal coordination of ``match``.
-
-    Each vacancy takes one neighbour from each of the z atoms around it, so the
-    missing neighbours divided by z estimate the vacancies; the volume and
-    lattice constant give a second estimate (sites minus atoms).
-    """
-    z = match.coordination
-    low = counts < z
-    missing = int((z - counts[low]).sum())
-    crowded = counts > z
-    crowded_r = CROWDED_FRACTION * match.nearest
-    close = pair_d < crowded_r
-    crowded[pair_i[close]] = True
-    crowded[pair_j[close]] = True
-    expected_sites = int(round(match.sites))
-    return {
-        "ideal_coordination": z,
-        "vacancy_like": int(low.sum()),
-        "missing_neighbours": missing,
-        "estimated_vacancies": round(missing / z, 3),
-        "expected_sites": expected_sites,
-        "estimated_vacancies_from_sites": expected_sites - len(counts),
-        "crowded": int(crowded.sum()),
-        "crowded_distance": crowded_r,
-        "vacancy_like_atoms": np.flatnonzero(low)[:ATOMS_LISTED].tolist(),
-        "crowded_atoms": np.flatnonzero(crowded)[:ATOMS_LISTED].tolist(),
-    }
+def _typical_spacing(structure: Structure, distribution: PairDistribution,
+                     workers: int) -> tuple[float | None, int, int]:
+    """(median nearest-neighbour distance over a seeded sample of atoms, atom, its
+    neighbour) for the median atom; (None, -1, -1) when no sampled atom has a
+    neighbour within the distribution's reach."""
+    n = structure.n_atoms
+    sample = np.arange(n) if n <= SPACING_SAMPLE else np.sort(
+        np.random.default_rng(0).choice(n, size=SPACING_SAMPLE, replace=False))
+    d, partner = neighbours.nearest_neighbours(structure.cell, structure.positions,
+                                               distribution.r_max, centres=sample,
+                                               workers=workers)
+    found = np.flatnonzero(np.isfinite(d))
+    if found.size * 2 < sample.size:
+        return None, -1, -1
+    # the median of all sampled atoms, counting those without a neighbour as farthest
+    k = found[np.argsort(d[found], kind="stable")][min(found.size - 1, sample.size // 2)]
+    return float(d[k]), int(sample[k]), int(partner[k])
 
 
-def _defects_note(shells: list[dict], defects: dict) -> str | None:
-    notes = []
-    if _shells_overlap(shells):
-        notes.append("the first two shells overlap (displaced atoms): counts at the cutoff, and "
-                     "the vacancy-like and crowded atoms inferred from them, include thermal noise")
-    if defects["estimated_vacancies_from_sites"] is None:
-        notes.append("atoms are too displaced from ideal sites for the lattice constant to "
-                     "count the sites of this many atoms to one site")
-    return "; ".join(notes) or None
+def _physical_spacing_check(structure: Structure, closest: tuple[float, int, int],
+                            typical: tuple[float | None, int, int]) -> Check:
+    """Closest pair not closer, and the median nearest neighbour not farther, than
+    any solid allows for their elements (:func:`cellbuild.spacing.judge`)."""
+    symbols = structure.symbols
+    species = structure.species
+
+    def pair(i: int, j: int) -> tuple[str, str]:
+        return symbols[species[i]], symbols[species[j]]
+
+    d_min, i, j = closest
+    near = physical.judge(d_min, *pair(i, j))
+    detail = f"closest pair {d_min:.4f} A ({'-'.join(pair(i, j))})"
+    median, a, b = typical
+    if median is None:
+        return Check("physical_spacing", False,
+                     detail + "; most atoms have no neighbour within the reach of the pair "
+                     "distribution (2.7 mean spacings): farther apart than any solid allows")
+    far = physical.judge(median, *pair(a, b))
+    detail += f", median nearest neighbour {median:.4f} A ({'-'.join(pair(a, b))})"
+    if median > far.upper:
+        return Check("physical_spacing", False,
+                     f"the median nearest neighbour ({'-'.join(pair(a, b))}) " + far.describe())
+    if d_min < near.lower:
+        typical_close = median < far.lower
+        text = near.describe() if typical_close else (
+            f"the closest pair ({'-'.join(pair(i, j))}, atoms {i} and {j}) is {d_min:.4g} A "
+            f"apart, closer than any solid allows ({near.lower:.3g} to {near.upper:.3g} A)")
+        return Check("physical_spacing", False, text)
+    return Check("physical_spacing", True,
+                 detail + f"; within {physical.LOW} to {physical.HIGH} x the sum of covalent "
+                 f"radii ({physical.SOURCE})")
 
 
-def _shells_overlap(shells: list[dict]) -> bool:
-    """True when the first two shells come within 3 standard deviations each of each
-    other, so that some pairs may fall on the wrong side of the cutoff."""
-    first, second = shells[0], shells[1]
-    return second["distance"] - first["distance"] < 3.0 * (first["spread"] + second["spread"])
-
-
-# ----------------------------------------------------------------------------- space group
-
-
-def space_group(structure: Structure) -> tuple[dict | None, str | None]:
-    """({"symbol", "number", "symprec", "atoms_analysed"}, None) or (None, why not)."""
-    unit = repeating_unit(structure, SYMPREC)
-    if unit.n_atoms > SPGLIB_MAX_ATOMS:
-        return None, (f"not determined: the cell has no smaller repeating unit along its "
-                      f"vectors and {unit.n_atoms:,} atoms are more than spglib handles in "
-                      f"seconds (limit {SPGLIB_MAX_ATOMS:,})")
-    symbol, number = spacegroup(unit, symprec=SYMPREC)
-    if number == 0:
-        return None, f"spglib found no space group (symprec {SYMPREC} A)"
-    return {"symbol": symbol, "number": number, "symprec": SYMPREC,
-            "atoms_analysed": unit.n_atoms}, None
-
-
-def repeating_unit(structure: Structure, tol: float) -> Structure:
-    """The cell with pure translations a_k / q removed along each cell vector.
-
-    A translation that maps every atom onto an atom of the same species
-    (within about ``tol`` A) means the cell is q copies of a smaller one with the
-    same space group. Structures without such a translation come back as they are.
-    """
-    frac = _wrapped(structure)
-    for axis in range(3):
-        q = _translation_order(structure, frac, axis, tol)
-        if q > 1:
-            reduced = _slab(structure, frac, axis, q, tol)
-            if reduced is not None:
-                structure = reduced
-                frac = _wrapped(structure)
-    return structure
-
-
-def _wrapped(structure: Structure) -> np.ndarray:
-    # einsum rather than @: see neighbours._times on OpenBLAS threads
-    frac = np.einsum("ij,jk->ik", structure.positions, np.linalg.inv(structure.cell))
-    frac -= np.floor(frac)
-    frac[frac >= 1.0] = 0.0
-    return frac
-
-
-#: Bin offset (an irrational fraction) so that the tidy coordinates of crystals
-#: (multiples of 1/2, 1/4, ...) do not sit on bin edges.
-_BIN_OFFSET = 0.3183098861837907
-#: Atoms tried first when testing a translation: one that does not map rules
-#: it out without sorting every atom.
-_TRANSLATION_SAMPLE = 256
-
-
-def _cells(frac: np.ndarray, bins: np.ndarray) -> np.ndarray:
-    """Position bins (N, 3) of ``tol``-sized cells along each axis."""
-    return np.floor(frac * bins + _BIN_OFFSET).astype(np.int64) % bins
-
-
-def _keys(cells: np.ndarray, species: np.ndarray, bins: np.ndarray) -> np.ndarray:
-    """One int64 per atom from its species and position bins."""
-    return ((species.astype(np.int64) * bins[0] + cells[:, 0]) * bins[1]
-            + cells[:, 1]) * bins[2] + cells[:, 2]
-
-
-def _bins(structure: Structure, tol: float) -> np.ndarray:
-    widths = neighbours.perpendicular_widths(structure.cell)
-    return np.maximum(1, np.floor(widths / (2.0 * tol))).astype(np.int64)
-
-
-def _translation_order(structure: Structure, frac: np.ndarray, axis: int, tol: float) -> int:
-    """Largest q with a_axis / q a symmetry translation found from atom 0's row, or 1.
-
-    The candidate comes from the atoms in the same row along ``axis`` as atom 0
-    (same bins on the other axes, same species): the shortest shift to one of
-    them is p / q of the cell vector, and a_axis / q is then tested on a sample
-    of atoms, then on all of them.
-    """
-    bins = _bins(structure, tol)
-    too_fine = float(np.prod(bins.astype(np.float64))) * (int(structure.species.max()) + 1)
-    if structure.n_atoms < 2 or too_fine >= 2.0 ** 62:  # keys would overflow int64
-        return 1
-    cells = _cells(frac, bins)
-    others = [k for k in range(3) if k != axis]
-    same_row = np.all(cells[:, others] == cells[0, others], axis=1)
-    same_row &= structure.species == structure.species[0]
-    shift = (frac[same_row, axis] - frac[0, axis]) % 1.0
-    shift = shift[(shift > 1.0 / bins[axis]) & (shift < 1.0 - 1.0 / bins[axis])]
-    if shift.size == 0:
-        return 1
-    q = Fraction(float(shift.min())).limit_denominator(structure.n_atoms).denominator
-    if q < 2 or structure.n_atoms % q:
-        return 1
-    keys = np.sort(_keys(cells, structure.species, bins))
-    moved = frac.copy()
-    moved[:, axis] = (moved[:, axis] + 1.0 / q) % 1.0
-    moved_keys = _keys(_cells(moved, bins), structure.species, bins)
-    sample = moved_keys[:: max(1, structure.n_atoms // _TRANSLATION_SAMPLE)]
-    found = np.searchsorted(keys, sample)
-    if np.any(found >= len(keys)) or np.any(keys[np.minimum(found, len(keys) - 1)] != sample):
-        return 1
-    return q if np.array_equal(keys, np.sort(moved_keys)) else 1
-
-
-def _slab(structure: Structure, frac: np.ndarray, axis: int, q: int,
-          tol: float) -> Structure | None:
-    """The atoms of the first 1/q of the cell along ``axis``, with that cell."""
-    half_bin = 0.5 / _bins(structure, tol)[axis]
-    keep = ((frac[:, axis] + half_bin) % 1.0) < 1.0 / q
-    if int(keep.sum()) * q != structure.n_atoms:
-        return None
-    cell = structure.cell.copy()
-    cell[axis] /= q
-    return Structure(cell=cell, positions=structure.positions[keep],
-                     species=structure.species[keep], symbols=structure.symbols)
+def _site_occupancy_check(partial: list[dict]) -> Check:
+    if not partial:
+        return Check("site_occupancy", True, "every atom site is fully occupied by one species")
+    shown = "; ".join(f"{p['label']} {p['symbol']} occupancy {p['occupancy']:g} (line {p['line']})"
+                      for p in partial[:3])
+    return Check("site_occupancy", False,
+                 f"{len(partial)} atom-site row(s) with occupancy below 1 ({shown}): the file "
+                 "describes a disordered crystal, while the structure inspected holds one "
+                 "species per site as the CIF reader resolved it")
 
 
 # ----------------------------------------------------------------------------- facts and checks
@@ -628,7 +410,7 @@ def _potential_cutoff_check(cell: np.ndarray, r: float) -> Check:
 def _expected_lattice_check(match: LatticeMatch | None, info: dict, expect: str) -> Check:
     if match is None:
         return Check("expected_lattice", False,
-                     f"matches no cubic lattice ({info.get('reason', '')}); expected {expect}")
+                     f"matches no known lattice ({info.get('reason', '')}); expected {expect}")
     return Check("expected_lattice", match.name == expect,
                  f"matches {match.name} (a = {match.lattice_constant:.4f} A, coordination "
                  f"{match.coordination}); expected {expect}")
@@ -733,7 +515,8 @@ def _lattice_text(result: dict) -> str:
         return f"none ({info.get('reason', 'no match')})"
     return (f"{result['lattice']}, a = {info['lattice_constant']:.4f} A (most common "
             f"coordination {info['coordination']}, d2/d1 = {info['shell_ratio']:.4f}, "
-            f"{info['sites']:.1f} sites for {result['n_atoms']:,} atoms)")
+            f"{info['sites']:.1f} sites for {result['n_atoms']:,} atoms, neighbour-count "
+            f"misfit {info['shell_misfit'][result['lattice']]:.3f})")
 
 
 def _or_unknown(value) -> str:
@@ -749,4 +532,7 @@ def _defects_text(defects: dict) -> str:
             f"{_or_unknown(defects['estimated_vacancies_from_sites'])} from sites minus atoms); "
             f"{defects['crowded']:,} crowded atom(s) (more than "
             f"{defects['ideal_coordination']} neighbours or closer than "
-            f"{defects['crowded_distance']:.4f} A){note}")
+            f"{defects['crowded_distance']:.4f} A), "
+            f"{_or_unknown(defects['interstitial_like'])} of them interstitial-like "
+            f"(on no lattice site){note}")
+

@@ -67,7 +67,7 @@ from .neighbour_grid import (MAX_GRID_OFFSETS, MAX_GRID_SITES, GridSites,
 __all__ = ["GridSites", "MAX_COUNTED_PAIRS", "MAX_GRID_OFFSETS", "MAX_GRID_SITES",
            "MAX_LISTED_PAIRS", "PairLimitError", "PairSample", "close_pairs",
            "coordination_counts", "general_counts", "grid_counts", "locate_grid",
-           "min_distance", "nearest_neighbours", "pair_distances", "pair_sample",
+           "min_distance", "nearest_neighbours", "pair_distances", "pair_sample", "pairs_of",
            "perpendicular_widths", "sampled_centre_count", "uniform_pairs"]
 
 # N atoms in volume V always have a pair (or an atom and an image) closer than
@@ -236,6 +236,29 @@ def close_pairs(cell, positions, r, *, workers=2, limit=None, max_pairs=MAX_LIST
     i, j = np.minimum(i, j), np.maximum(i, j)
     rank = np.lexsort((j, i, d2))
     return i[rank], j[rank], np.sqrt(d2[rank])
+
+
+def pairs_of(cell, positions, centres, r, *, max_pairs=MAX_LISTED_PAIRS
+             ) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
+    """Every neighbour (atom or image) closer than ``r`` (A) of the given centres.
+
+    Returns ``(i, j, distance)``: i a centre's atom index, j the neighbour's,
+    float64 Angstrom, grouped by centre (each neighbour of a centre once per
+    image). PairLimitError (a ValueError) beyond ``max_pairs`` pairs.
+    """
+    cell = _checked_cell(cell)
+    positions = _checked_positions(positions)
+    r = _checked_radius(r, "r")
+    centres = np.asarray(centres, dtype=np.int64)
+    if len(positions) == 0 or len(centres) == 0:
+        return np.zeros(0, np.int64), np.zeros(0, np.int64), np.zeros(0)
+    bins = _build_bins(cell, positions, r, limit=math.inf)
+    chunks = _chunks(bins, half=False, centres=np.sort(bins.rank[centres]),
+                     limit=(r, int(max_pairs), "a pair list holds"))
+    parts = [_pairs_in_chunk(bins, chunk, r * r, half=False) for chunk in chunks]
+    i = bins.order[np.concatenate([p[0] for p in parts])]
+    j = bins.order[bins.entry_atom[np.concatenate([p[1] for p in parts])]]
+    return i, j, np.sqrt(np.concatenate([p[2] for p in parts]))
 
 
 def nearest_neighbours(cell, positions, r, *, centres=None, workers=2
