@@ -266,9 +266,16 @@ def _batch_summary(result, show_problems: bool) -> None:
         for o in result.outcomes:
             if o.status != "passed":
                 typer.echo(outcome_line(o))
+    if show_problems:
+        for o in result.outcomes:
+            if o.status == "passed" and o.warnings:
+                typer.echo(outcome_line(o))
     if result.removed:
         typer.echo(f"removed {len(result.removed)} file(s) the previous manifest listed "
                    "and this build no longer writes")
+    if result.temporaries:
+        typer.echo(f"removed {len(result.temporaries)} temporary file(s) left by an "
+                   "interrupted run")
     typer.echo(f"{len(statuses)} structure(s): {statuses.count('passed')} passed, "
                f"{statuses.count('failed')} failed checks, {statuses.count('error')} "
                f"could not be built; manifest {result.manifest_path}")

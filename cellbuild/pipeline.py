@@ -117,7 +117,9 @@ def make(recipe: Recipe, out_dir: str | os.PathLike, *, force: bool = False,
     note("audit")
     result_audit = audit(built.plan, built.structure, built.placements, workers=workers)
     report_path = Path(out_dir) / f"{recipe.name}.report.json"
-    with StagedFiles() as staged:  # all files appear together, or none do
+    # all files appear together or none do; without force, every name is claimed
+    # exclusively, so a second run racing for the same names refuses instead of replacing
+    with StagedFiles(replace=force, root=out_dir) as staged:
         outputs = {}
         for key in recipe.outputs:
             note(key)

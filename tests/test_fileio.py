@@ -6,7 +6,6 @@ the outputs themselves; no numeric physics here.
 """
 from __future__ import annotations
 
-import inspect
 import multiprocessing
 import os
 from pathlib import Path
@@ -208,8 +207,6 @@ def test_two_processes_racing_for_the_same_names_one_wins_whole(tmp_path, attemp
     assert _hidden(tmp_path) == []
 
 
-@pytest.mark.skipif("replace=" not in inspect.getsource(__import__("cellbuild.pipeline").pipeline.make),
-                    reason="pipeline.make does not yet pass replace=force to StagedFiles")
 def test_two_makes_without_force_racing_one_is_refused(tmp_path):
     """Two `make` runs of one name into one folder, released together: one exits with
     'already exists'."""
