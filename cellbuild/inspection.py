@@ -435,7 +435,8 @@ def inspect_file(path, *, types: list[str] | None = None, cutoff: float | None =
     source = {"format": read.format, "reader": read.reader, "warnings": notes}
     result, distribution = analyse(read.structure, file=str(path), cutoff=cutoff,
                                    expect=expect, potential_cutoff=potential_cutoff,
-                                   workers=workers, source=source)
+                                   workers=workers, source=source,
+                                   partial_occupancy=read.partial_occupancy)
     result["format_title"] = FORMAT_TITLES[read.format]
     if plot is not None:
         from .plots import plot_inspection

@@ -353,12 +353,17 @@ def pair_sample(cell, positions, r_max, *, max_pairs=None, workers=2) -> PairSam
     bins = _build_bins(cell, positions, r_max,
                        limit=MAX_LISTED_PAIRS if max_pairs is None else math.inf)
     m = n if max_pairs is None else sampled_centre_count(cell, n, r_max, max_pairs)
-    if m >= n and int(_candidate_counts(bins, np.arange(n), True).sum()) > cap:
+    # candidates the m centres would examine (each pair once when m = N)
+    candidates = float(_candidate_counts(bins, np.arange(n), True).sum())
+    if m < n:
+        candidates *= 2.0 * m / n
+    if candidates > cap:
         pairs = _estimated_pairs(bins, r_max * r_max, n, half=True)
-        if pairs > cap:
+        per_centre = 2.0 * pairs / n
+        if (m if m < n else 0.5 * n) * per_centre > cap:
             if max_pairs is None:
                 raise PairLimitError(pairs, r_max, cap, "a pair list holds")
-            m = int(min(n, max(1, math.ceil(cap / (2.0 * pairs / n)))))
+            m = int(min(m, n - 1, max(1, math.ceil(cap / per_centre))))
     half = m >= n
     if half:
         chunks = _chunks(bins, half=True)

@@ -25,6 +25,7 @@ from pathlib import Path
 import numpy as np
 
 from .errors import InputError
+from .read_checks import check_claimed_counts, check_values
 from .structure import Structure
 
 #: Formats and how a user would recognise them in messages.
@@ -50,9 +51,12 @@ _LAMMPS_STYLES = {"atomic": 5, "charge": 6}
 _LAMMPS_SECTIONS = ("Atoms", "Velocities", "Masses", "Atom Type Labels")
 #: Exceptions the libraries' readers raise on malformed text. Anything else is
 #: a bug and is left to propagate.
+#: (TypeError, AttributeError and AssertionError are bugs, ours or a
+#: library's, and are not caught: files are validated before a library reads
+#: them, so that garbage does not reach it.)
 _READER_ERRORS = (ValueError, IndexError, KeyError, OSError, UnicodeDecodeError,
-                  StopIteration, AssertionError, RuntimeError, TypeError, EOFError,
-                  AttributeError, ZeroDivisionError)
+                  StopIteration, EOFError)
+
 
 
 @dataclass
@@ -70,6 +74,9 @@ class ReadResult:
     format: str
     reader: str
     warnings: list[str] = field(default_factory=list)
+    #: CIF only: atom-site rows with occupancy below 1, as
+    #: {"label", "symbol", "occupancy", "line"}; None for other formats.
+    partial_occupancy: list[dict] | None = None
 
 
 def read_structure(path, types: list[str] | None = None) -> Structure:
@@ -91,6 +98,7 @@ def read_file(path, types: list[str] | None = None, *, fast: bool | None = None)
     fmt = detect_format(path, head)
     if fast is None:
         fast = path.stat().st_size >= FAST_READ_MIN_BYTES
+    check_claimed_counts(path, fmt)
     with warnings.catch_warnings(record=True) as caught:
         warnings.simplefilter("always")
         result = _READERS[fmt](path, types, fast)
@@ -203,10 +211,12 @@ def _read_cif(path: Path, types, fast) -> ReadResult:
     reader for everything else; pymatgen's parser when ASE refuses the file."""
     text = path.read_text(errors="replace")
     loops = _cif_loops(text)
-    structure = _fast_p1_cif(text, loops)
+    partial = _cif_partial_occupancy(loops)
+    # a disordered table lists several atoms on one site: ASE's reader keeps one
+    structure = None if partial else _fast_p1_cif(text, loops)
     if structure is not None:
         _check_cif_complete(path, structure, text, loops)
-        return ReadResult(structure, "cif", "cellbuild (P 1 table)")
+        return ReadResult(structure, "cif", "cellbuild (P 1 table)", partial_occupancy=partial)
     _refuse_large_cif_table(path, loops)
     try:
         atoms = _ase_read(path, "cif")
@@ -214,8 +224,45 @@ def _read_cif(path: Path, types, fast) -> ReadResult:
     except InputError as ase_error:
         structure = _pymatgen_cif(path, ase_error)
         reader = "pymatgen"
-    _check_cif_complete(path, structure, text, loops)
-    return ReadResult(structure, "cif", reader)
+    if not partial:
+        _check_cif_complete(path, structure, text, loops)
+    return ReadResult(structure, "cif", reader, partial_occupancy=partial)
+
+
+def _cif_partial_occupancy(loops: list[_CifLoop]) -> list[dict]:
+    """Atom-site rows whose ``_atom_site_occupancy`` is below 1 (by more than
+    0.001), as {"label", "symbol", "occupancy", "line"}; unknown values ('?',
+    '.') count as 1."""
+    table = _atom_site_loop(loops)
+    if table is None or "_atom_site_occupancy" not in table.heads:
+        return []
+    heads = list(table.heads)
+    width, column = len(heads), heads.index("_atom_site_occupancy")
+    if any(q in table.body for q in "'\"#"):
+        fields = [f for row in table.rows() for f in _cif_fields(row)]
+    else:
+        fields = table.body.split()
+    if len(fields) % width:
+        return []  # a damaged table: the completeness check names it
+    values = np.char.partition(np.array(fields[column::width]), "(")[:, 0]
+    values[np.isin(values, ["?", "."])] = "1"
+    try:
+        occupancy = values.astype(np.float64)
+    except ValueError:
+        return []  # the general readers explain a non-number
+    rows = np.flatnonzero(occupancy < 1.0 - 1e-3)
+    if rows.size == 0:
+        return []
+    label_column = heads.index("_atom_site_label") if "_atom_site_label" in heads else 0
+    symbol_column = (heads.index("_atom_site_type_symbol") if "_atom_site_type_symbol" in heads
+                     else label_column)
+    body_rows = [k for k, ln in enumerate(table.body.splitlines())
+                 if ln.strip() and not ln.lstrip().startswith("#")]
+    return [{"label": fields[k * width + label_column],
+             "symbol": fields[k * width + symbol_column],
+             "occupancy": float(occupancy[k]),
+             "line": table.body_line + body_rows[k] if k < len(body_rows) else None}
+            for k in rows.tolist()]
 
 
 @dataclass(frozen=True)
@@ -477,10 +524,13 @@ def _read_vasp(path: Path, types, fast) -> ReadResult:
 
 def _read_lammps(path: Path, types, fast) -> ReadResult:
     header = _lammps_header(path)
-    if fast:
-        structure = _fast_lammps(path, header, types)
-        if structure is not None:
-            return ReadResult(structure, "lammps-data", "cellbuild")
+    # the numpy reader validates every atom row, so that ASE is not handed a
+    # malformed one (it raises RuntimeError or TypeError on those)
+    structure = _fast_lammps(path, header, types)
+    if structure is None and not header.general_box:
+        raise _unreadable(path, "lammps-data", ValueError("an atom row is not numbers"))
+    if fast and structure is not None:
+        return ReadResult(structure, "lammps-data", "cellbuild")
     # Unmapped types read as element 0 ('X') and are refused below, once the
     # types that atoms actually carry are known.
     z_of_type = {t: 0 for t in range(1, header.n_types + 1)}
@@ -527,6 +577,12 @@ def _lammps_header(path: Path) -> _LammpsHeader:
             text = text.strip()
             if not text:
                 continue
+            if section in ("after Atoms", "after Velocities") and not re.fullmatch(
+                    r"[A-Z][A-Za-z ]+", text):
+                what = section.split()[1]
+                raise InputError(f"has more {what} rows than the {head.n_atoms:,} atoms its "
+                                 f"header declares (LAMMPS refuses such a file)",
+                                 file=str(path), line=number)
             if text in _LAMMPS_SECTIONS or re.fullmatch(r"[A-Z][A-Za-z ]+", text):
                 section = text
                 if section == "Atoms":
@@ -534,7 +590,7 @@ def _lammps_header(path: Path) -> _LammpsHeader:
                     style_comment = comment.strip() or None
                 continue
             if section is None:
-                _header_line(head, text)
+                _header_line(head, text, path, number)
             elif section == "Masses":
                 _mass_line(head, path, text, number)
             elif section in ("Atoms", "Velocities"):
@@ -559,8 +615,22 @@ def _mass_line(head: _LammpsHeader, path: Path, text: str, number: int) -> None:
                          file=str(path), line=number) from None
 
 
-def _header_line(head: _LammpsHeader, text: str) -> None:
+def _header_line(head: _LammpsHeader, text: str, path: Path, number: int) -> None:
     parts = text.split()
+    if len(parts) == 4 and parts[2][1:] == "lo" and parts[3][1:] == "hi":
+        try:
+            low, high = float(parts[0]), float(parts[1])
+        except ValueError:
+            raise InputError(f"has box bounds that are not numbers: {text!r}",
+                             file=str(path), line=number) from None
+        if not (math.isfinite(low) and math.isfinite(high) and low < high):
+            raise InputError(f"has box bounds {parts[2]} = {parts[0]} and {parts[3]} = "
+                             f"{parts[1]}; LAMMPS needs finite bounds with lo < hi",
+                             file=str(path), line=number)
+    if parts[-2:] == ["atom", "types"] and len(parts) == 3 and parts[0].isdigit() and (
+            len(parts[0]) > 6):
+        raise InputError(f"declares {parts[0]} atom types, more than cellbuild reads (999,999)",
+                         file=str(path), line=number)
     try:
         if parts[-1] == "atoms" and len(parts) == 2:
             head.n_atoms = int(parts[0])
@@ -760,6 +830,7 @@ def _xyz_columns(properties: str):
 
 def _check_periodic(structure: Structure, path: Path, fmt: str) -> None:
     """A periodic cell with volume and finite coordinates, or InputError."""
+    check_values(structure, path)
     cell = structure.cell
     lengths = np.linalg.norm(cell, axis=1)
     if not np.all(np.isfinite(cell)) or np.any(lengths == 0) or (
