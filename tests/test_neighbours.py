@@ -404,3 +404,50 @@ def test_property_random_triclinic_counts_equal_ase(structure):
     reference = ase_counts(atoms, cutoff)
     np.testing.assert_array_equal(coordination_counts(cell, positions, cutoff), reference)
     np.testing.assert_array_equal(general_counts(cell, positions, cutoff), reference)
+
+
+# ----------------------------------------------------------------------------- bounds and new searches
+
+
+def test_pair_searches_refuse_beyond_their_budget_before_allocating():
+    import resource
+    import time
+
+    from cellbuild.neighbours import MAX_LISTED_PAIRS, PairLimitError, pair_sample
+
+    n = 20_000
+    cell, pile = np.eye(3) * 20.0, np.full((n, 3), 5.0)
+    before = resource.getrusage(resource.RUSAGE_SELF).ru_maxrss
+    start = time.perf_counter()
+    with pytest.raises(PairLimitError) as listed:
+        close_pairs(cell, pile, 0.5)
+    # every pair of the pile is at distance 0: n(n-1)/2 of them (counting)
+    assert listed.value.pairs == pytest.approx(n * (n - 1) / 2, rel=0.05)
+    with pytest.raises(PairLimitError):
+        coordination_counts(cell, pile, 1.0)
+    with pytest.raises(PairLimitError):  # the uniform estimate alone refuses this
+        coordination_counts(np.eye(3) * 3.6, np.random.default_rng(0).random((31, 3)), 1000.0)
+    sample = pair_sample(cell, pile, 3.0, max_pairs=500_000)
+    assert len(sample.distances) <= 2 * 500_000 and sample.centres < n
+    assert time.perf_counter() - start < 10.0
+    # memory grew by far less than the 4.8 GB of listing every pair
+    grown_kb = resource.getrusage(resource.RUSAGE_SELF).ru_maxrss - before
+    assert grown_kb * 1024 < 24 * MAX_LISTED_PAIRS * 4
+
+
+def test_pairs_of_and_nearest_neighbours_match_ase():
+    from cellbuild.neighbours import nearest_neighbours, pairs_of
+
+    atoms = shaken(crystal("diamond", (2, 2, 2)), 0.1, seed=3)
+    cell, positions = cell_and_positions(atoms)
+    r = 3.0
+    ai, aj, ad = neighbor_list("ijd", atoms, r)  # ASE as the reference
+    centres = np.array([0, 5, 17])
+    i, j, d = pairs_of(cell, positions, centres, r)
+    want = sorted((a, b, round(x, 9)) for a, b, x in zip(ai, aj, ad) if a in centres)
+    assert sorted((a, b, round(x, 9)) for a, b, x in zip(i, j, d)) == want
+    best, partner = nearest_neighbours(cell, positions, r)
+    for k in range(len(atoms)):
+        mine = ad[ai == k]
+        assert best[k] == pytest.approx(mine.min())
+        assert partner[k] == aj[ai == k][np.argmin(mine)]
