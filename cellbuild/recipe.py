@@ -1,26 +1,64 @@
-"""The recipe: YAML loading (safe, with line numbers) and validation into frozen types.
+"""The recipe: frozen types that cannot hold an invalid value, and the parser that
+turns loaded YAML data into them.
 
-Validation happens once, here, at the boundary. Every error is an
-:class:`~cellbuild.errors.InputError` naming the dotted key, the value, what
-would be accepted and, where known, the YAML line.
+Every dataclass checks its fields in ``__post_init__``, so a recipe built in
+Python (``Recipe(name="../x", ...)``) is refused exactly like the same recipe
+in a file. :func:`parse_recipe` adds what only the file knows: unknown and
+missing keys, which of two exclusive keys was written, and the YAML line of
+every key. Every error is an :class:`~cellbuild.errors.InputError` naming the
+dotted key, the value and what would be accepted. Loading the YAML text lives
+in :mod:`cellbuild.yamlread` (re-exported here as :func:`load_yaml` and
+:func:`parse_yaml`).
 """
 from __future__ import annotations
 
 import difflib
-import math
 import re
 from dataclasses import dataclass, field
 from pathlib import Path
 from typing import Any, Mapping
 
+from . import recipe_values as v
 from .errors import InputError
 from .lattices import LATTICES
+from .yamlread import load_yaml, parse_yaml
+
+__all__ = ["Amount", "Checks", "Crystal", "Defects", "Interstitial", "Recipe", "Size",
+           "Substitution", "Vacancies", "load_recipe", "load_yaml", "parse_recipe", "parse_yaml"]
 
 FORMAT_KEYS = ("lammps-data", "cif", "xyz", "poscar")
 NAME_PATTERN = re.compile(r"^[A-Za-z0-9_.-]{1,200}$")
 DEFAULT_OUTPUTS = FORMAT_KEYS
 
 Lines = Mapping[str, int]
+
+
+def _set(obj, name: str, value) -> None:
+    """Store a normalised field value on a frozen dataclass (from ``__post_init__`` only)."""
+    object.__setattr__(obj, name, value)
+
+
+def _exclusive(obj, names: tuple[str, ...], prefix: str, *, required: bool) -> str | None:
+    """The one of ``names`` that is set on ``obj``; refuses two (and none if ``required``)."""
+    given = [n for n in names if getattr(obj, n) is not None]
+    if len(given) > 1:
+        v.fail(v.join(prefix, given[1]), getattr(obj, given[1]),
+               f"cannot be given together with `{v.join(prefix, given[0])}`",
+               f"give exactly one of {', '.join(names)}")
+    if required and not given:
+        raise InputError(f"needs one of {', '.join(names)}", key=prefix or None)
+    return given[0] if given else None
+
+
+def _triple(value, key: str, check, message: str) -> tuple:
+    """One value for all three axes, or three values, each passed through ``check``."""
+    if isinstance(value, (int, float)) and not isinstance(value, bool) \
+            or type(value).__module__ == "numpy" and getattr(value, "ndim", 1) == 0:
+        value = (value,) * 3
+    items = v.sequence(value, key, message)
+    if len(items) != 3:
+        v.fail(key, value, message)
+    return tuple(check(item, f"{key}[{i}]") for i, item in enumerate(items))
 
 
 # ----------------------------------------------------------------------------- model
@@ -37,51 +75,129 @@ class Crystal:
     density: float | None = None
     radius: float | None = None
 
+    def __post_init__(self) -> None:
+        v.element(self.element, "crystal.element")
+        if v.text(self.lattice, "crystal.lattice") not in LATTICES:
+            v.fail("crystal.lattice", self.lattice, "is not a known lattice",
+                   f"known lattices: {', '.join(LATTICES)}")
+        which = _exclusive(self, ("a", "density", "radius"), "crystal", required=False)
+        if which:
+            _set(self, which, v.number(getattr(self, which), f"crystal.{which}"))
+
 
 @dataclass(frozen=True)
 class Size:
     """Exactly one of: ``repeat`` (cells per axis), ``atoms`` (target count),
-    ``min_length`` (Angstrom per axis)."""
+    ``min_length`` (Angstrom per axis). One number for ``repeat`` or ``min_length``
+    means the same on all three axes."""
 
     repeat: tuple[int, int, int] | None = None
     atoms: int | None = None
     min_length: tuple[float, float, float] | None = None
 
+    def __post_init__(self) -> None:
+        which = _exclusive(self, ("repeat", "atoms", "min_length"), "size", required=True)
+        raw = getattr(self, which)
+        if which == "repeat":
+            _set(self, which, _triple(raw, "size.repeat", lambda x, k: v.integer(x, k, minimum=1),
+                                      "must be a list of three whole numbers "
+                                      "(or one number for all axes)"))
+        elif which == "atoms":
+            _set(self, which, v.integer(raw, "size.atoms", minimum=1))
+        else:
+            _set(self, which, _triple(raw, "size.min_length", v.number,
+                                      "must be a length in Angstrom or a list of three"))
+
 
 @dataclass(frozen=True)
 class Amount:
-    """A defect amount: an exact ``count`` or a ``fraction`` of the sites of ``on``."""
+    """A defect amount: an exact ``count`` or a ``fraction`` (0 to 1) of the sites of ``on``.
+
+    Errors name ``count``/``fraction``; the parser prefixes the defect's key."""
 
     count: int | None = None
     fraction: float | None = None
 
+    def __post_init__(self) -> None:
+        which = _exclusive(self, ("count", "fraction"), "", required=True)
+        if which == "count":
+            _set(self, "count", v.integer(self.count, "count"))
+        else:
+            _set(self, "fraction", v.fraction(self.fraction, "fraction"))
+
+
+def _is_amount(value, key: str) -> None:
+    if not isinstance(value, Amount):
+        v.fail(key, value, f"must be an Amount, not {v.kind(value)}")
+
 
 @dataclass(frozen=True)
 class Vacancies:
+    """Vacancies on the sites of element ``on``."""
+
     amount: Amount
     on: str
+
+    def __post_init__(self) -> None:
+        _is_amount(self.amount, "defects.vacancies.amount")
+        v.element(self.on, "defects.vacancies.on")
 
 
 @dataclass(frozen=True)
 class Substitution:
+    """``element`` on sites of ``on``. Errors name ``element``/``on``; the parser
+    prefixes ``defects.substitutions[i]``."""
+
     element: str
     amount: Amount
     on: str
 
+    def __post_init__(self) -> None:
+        v.element(self.element, "element")
+        _is_amount(self.amount, "amount")
+        v.element(self.on, "on")
+        if self.element == self.on:
+            v.fail("element", self.element, f"substitutes `{self.on}` by itself")
+
 
 @dataclass(frozen=True)
 class Interstitial:
+    """``element`` on interstitial sites of kind ``site`` (checked against the lattice
+    by :class:`Recipe`). Errors name ``element``/``site``."""
+
     element: str
     site: str
     amount: Amount
 
+    def __post_init__(self) -> None:
+        v.element(self.element, "element")
+        v.text(self.site, "site")
+        _is_amount(self.amount, "amount")
+
 
 @dataclass(frozen=True)
 class Defects:
+    """Defect requests; ``min_separation`` in Angstrom between any two defects."""
+
     vacancies: Vacancies | None = None
     substitutions: tuple[Substitution, ...] = ()
     interstitials: tuple[Interstitial, ...] = ()
     min_separation: float | None = None
+
+    def __post_init__(self) -> None:
+        if self.vacancies is not None and not isinstance(self.vacancies, Vacancies):
+            v.fail("defects.vacancies", self.vacancies,
+                   f"must be Vacancies, not {v.kind(self.vacancies)}")
+        for name, cls in (("substitutions", Substitution), ("interstitials", Interstitial)):
+            items = v.sequence(getattr(self, name), f"defects.{name}", "must be a list")
+            for i, item in enumerate(items):
+                if not isinstance(item, cls):
+                    v.fail(f"defects.{name}[{i}]", item,
+                           f"must be a {cls.__name__}, not {v.kind(item)}")
+            _set(self, name, items)
+        if self.min_separation is not None:
+            _set(self, "min_separation",
+                 v.number(self.min_separation, "defects.min_separation"))
 
     @property
     def any(self) -> bool:
@@ -90,9 +206,17 @@ class Defects:
 
 @dataclass(frozen=True)
 class Checks:
-    """Audit settings. ``min_distance`` in Angstrom; None: half the nearest-neighbour distance."""
+    """Audit settings. ``min_distance`` in Angstrom; None: half the nearest-neighbour
+    distance. ``physical_spacing``: refuse a nearest-neighbour distance outside the
+    physically possible band (:mod:`cellbuild.spacing`); false builds it on purpose."""
 
     min_distance: float | None = None
+    physical_spacing: bool = True
+
+    def __post_init__(self) -> None:
+        if self.min_distance is not None:
+            _set(self, "min_distance", v.number(self.min_distance, "checks.min_distance"))
+        v.boolean(self.physical_spacing, "checks.physical_spacing")
 
 
 @dataclass(frozen=True)
@@ -109,6 +233,35 @@ class Recipe:
     checks: Checks = field(default_factory=Checks)
     source: str | None = None
 
+    def __post_init__(self) -> None:
+        name = v.text(self.name, "name")
+        if not NAME_PATTERN.match(name) or name.startswith("."):
+            v.fail("name", self.name, "is not a safe file stem",
+                   "use letters, digits, '-', '_' and '.', not starting with '.', "
+                   "at most 200 characters")
+        for key, cls in (("crystal", Crystal), ("size", Size), ("defects", Defects),
+                         ("checks", Checks)):
+            if not isinstance(getattr(self, key), cls):
+                v.fail(key, getattr(self, key),
+                       f"must be a cellbuild.recipe.{cls.__name__}, not {v.kind(getattr(self, key))}")
+        _set(self, "seed", v.integer(self.seed, "seed"))
+        _set(self, "outputs", _outputs(self.outputs))
+        if self.types is not None:
+            _set(self, "types", _types(self.types))
+        sites = LATTICES[self.crystal.lattice].interstitials
+        for i, item in enumerate(self.defects.interstitials):
+            if item.site not in sites:
+                v.fail(f"defects.interstitials[{i}].site", item.site,
+                       f"is not an interstitial site of {self.crystal.lattice}",
+                       f"sites of {self.crystal.lattice}: {', '.join(sites)}")
+        if self.types is not None:
+            needed = [self.crystal.element] + [s.element for s in self.defects.substitutions]
+            needed += [i.element for i in self.defects.interstitials]
+            missing = [e for e in dict.fromkeys(needed) if e not in self.types]
+            if missing:
+                v.fail("types", list(self.types), f"does not list {', '.join(missing)}",
+                       "list every element the recipe uses")
+
     def elements(self) -> tuple[str, ...]:
         """Elements in LAMMPS type order: ``types`` if given, else host, substituents
         in recipe order, then interstitials."""
@@ -120,186 +273,97 @@ class Recipe:
         return tuple(dict.fromkeys(order))
 
 
-# ----------------------------------------------------------------------------- YAML
+def _outputs(value) -> tuple[str, ...]:
+    if isinstance(value, str):
+        value = [value]
+    items = v.sequence(value, "outputs", "must be a non-empty list of formats")
+    if not items:
+        v.fail("outputs", list(items), "must be a non-empty list of formats",
+               f"known formats: {', '.join(FORMAT_KEYS)}")
+    seen: list[str] = []
+    for i, item in enumerate(items):
+        if not isinstance(item, str) or item not in FORMAT_KEYS:
+            near = difflib.get_close_matches(str(item)[:20], FORMAT_KEYS, n=1, cutoff=0.5)
+            hint = f"did you mean `{near[0]}`? " if near else ""
+            v.fail(f"outputs[{i}]", item, "is not a known output format",
+                   f"{hint}known formats: {', '.join(FORMAT_KEYS)}")
+        if item in seen:
+            v.fail(f"outputs[{i}]", item, "is listed twice")
+        seen.append(item)
+    return tuple(seen)
 
 
-def _yaml_loader():
-    """A SafeLoader subclass that refuses duplicate keys (imported lazily)."""
-    import yaml
-
-    class Loader(yaml.SafeLoader):
-        pass
-
-    return Loader
-
-
-def load_yaml(path: str | Path) -> tuple[Any, dict[str, int]]:
-    """Read a YAML file safely; return the data and dotted key -> 1-based line.
-
-    Duplicate keys, YAML syntax errors, object-constructing tags and unreadable
-    files raise :class:`InputError`.
-    """
-    path = Path(path)
-    try:
-        text = path.read_text(encoding="utf-8")
-    except FileNotFoundError:
-        raise InputError("file not found", file=str(path)) from None
-    except IsADirectoryError:
-        raise InputError("is a folder, not a recipe file", file=str(path)) from None
-    except UnicodeDecodeError:
-        raise InputError("is not UTF-8 text", hint="a recipe is a YAML text file",
-                         file=str(path)) from None
-    except OSError as exc:
-        raise InputError(f"cannot be read ({exc.strerror})", file=str(path)) from None
-    return parse_yaml(text, str(path))
+def _types(value) -> tuple[str, ...]:
+    message = "must be a list of element symbols in LAMMPS type order"
+    items = v.sequence(value, "types", message)
+    if not items:
+        v.fail("types", list(items), message)
+    symbols = tuple(v.element(item, f"types[{i}]") for i, item in enumerate(items))
+    if len(set(symbols)) != len(symbols):
+        v.fail("types", list(value), "lists an element twice")
+    return symbols
 
 
-def parse_yaml(text: str, file: str | None = None) -> tuple[Any, dict[str, int]]:
-    """Parse YAML text safely; see :func:`load_yaml`."""
-    import yaml
-
-    loader = None
-    try:
-        loader = _yaml_loader()(text)
-        node = loader.get_single_node()
-        if node is None:
-            raise InputError("the recipe is empty", hint="see `cellbuild template fcc`",
-                             file=file)
-        lines: dict[str, int] = {}
-        data = _construct(loader, node, "", lines, file)
-    except yaml.MarkedYAMLError as exc:
-        mark = exc.problem_mark or exc.context_mark
-        line = mark.line + 1 if mark else None
-        problem = (exc.problem or exc.context or "invalid YAML").strip()
-        if "could not determine a constructor" in problem:
-            problem = "YAML tags that construct objects are not accepted"
-        raise InputError(f"YAML error: {problem}", file=file, line=line) from None
-    except yaml.reader.ReaderError as exc:
-        line = text.count("\n", 0, exc.position) + 1
-        raise InputError(f"YAML error: character {chr(exc.character)!r} is not allowed"
-                         if isinstance(exc.character, int) else "YAML error: unreadable characters",
-                         hint="a recipe is plain YAML text", file=file, line=line) from None
-    except yaml.YAMLError as exc:
-        raise InputError(f"YAML error: {str(exc).splitlines()[0]}", file=file) from None
-    finally:
-        if loader is not None:
-            loader.dispose()
-    return data, lines
-
-
-_PLAIN_TAGS = ("tag:yaml.org,2002:map", "tag:yaml.org,2002:seq")
-
-
-def _construct(loader, node, path: str, lines: dict[str, int], file: str | None):
-    """Turn a composed YAML node into plain data, recording the line of each key."""
-    import yaml
-
-    lines.setdefault(path, node.start_mark.line + 1)
-    if not isinstance(node, yaml.ScalarNode) and node.tag not in _PLAIN_TAGS:
-        # we build mappings and lists ourselves, so refuse their tags explicitly
-        raise InputError(f"YAML tag {node.tag} is not accepted",
-                         hint="YAML tags that construct objects are refused",
-                         key=path or None, file=file, line=node.start_mark.line + 1)
-    if isinstance(node, yaml.MappingNode):
-        loader.flatten_mapping(node)
-        out: dict[Any, Any] = {}
-        for key_node, value_node in node.value:
-            key = loader.construct_object(key_node, deep=True)
-            if not isinstance(key, (str, int, float, bool)):
-                raise InputError("mapping keys must be plain words", key=path or None,
-                                 file=file, line=key_node.start_mark.line + 1)
-            key = str(key)
-            child = f"{path}.{key}" if path else key
-            if key in out:
-                raise InputError("duplicate key", key=child, file=file,
-                                 line=key_node.start_mark.line + 1,
-                                 hint="each key may appear once")
-            lines[child] = key_node.start_mark.line + 1
-            out[key] = _construct(loader, value_node, child, lines, file)
-        return out
-    if isinstance(node, yaml.SequenceNode):
-        return [
-            _construct(loader, item, f"{path}[{i}]", lines, file)
-            for i, item in enumerate(node.value)
-        ]
-    return loader.construct_object(node, deep=True)
-
-
-# ----------------------------------------------------------------------------- validation
+# ----------------------------------------------------------------------------- parsing
 
 
 class _Checker:
-    """Validation helpers that know the file and the line of each key."""
+    """Structure checks (mappings, known and missing keys) that know the file and
+    the line of each key, and construction of the dataclasses with their errors
+    located at the recipe key."""
 
     def __init__(self, lines: Lines | None, file: str | None) -> None:
         self.lines = lines or {}
         self.file = file
 
+    def line_of(self, key: str) -> int | None:
+        """The line of ``key``, else of its nearest ancestor that has one."""
+        while key:
+            if key in self.lines:
+                return self.lines[key]
+            key = re.sub(r"(\.[^.\[\]]*|\[\d+\])$", "", key) if re.search(
+                r"(\.[^.\[\]]*|\[\d+\])$", key) else ""
+        return None
+
     def fail(self, key: str, value: Any, message: str, hint: str | None = None):
-        line = self.lines.get(key)
-        if line is None and "." in key:
-            line = self.lines.get(key.rsplit(".", 1)[0])
-        raise InputError(message, key=key, value=value, hint=hint, file=self.file, line=line)
+        raise InputError(message, key=key, value=value, hint=hint, file=self.file,
+                         line=self.line_of(key))
 
     def fail_missing(self, key: str, message: str, hint: str | None = None):
         parent = key.rsplit(".", 1)[0] if "." in key else ""
         raise InputError(message, key=key, hint=hint, file=self.file,
                          line=self.lines.get(parent))
 
+    def make(self, cls, prefix: str, *args, **fields):
+        """``cls(*args, **fields)``; its error's key is prefixed with ``prefix``
+        and located in the file."""
+        try:
+            return cls(*args, **fields)
+        except InputError as exc:
+            key = v.join(prefix, exc.key)
+            raise InputError(exc.message, key=key or None, hint=exc.hint, file=self.file,
+                             line=self.line_of(key) if key else None,
+                             **({"value": exc.value} if exc.has_value else {})) from None
+
     def mapping(self, value: Any, key: str) -> dict:
         if not isinstance(value, dict):
-            self.fail(key, value, f"must be a mapping, not {_kind(value)}")
+            self.fail(key, value, f"must be a mapping, not {v.kind(value)}")
         return value
 
     def known_keys(self, data: dict, allowed: tuple[str, ...], prefix: str) -> None:
         for k in data:
             if k not in allowed:
-                near = difflib.get_close_matches(k, allowed, n=1, cutoff=0.6)
+                near = difflib.get_close_matches(str(k)[:40], allowed, n=1, cutoff=0.6)
                 hint = f"did you mean `{near[0]}`? " if near else ""
                 where = f"`{prefix}`" if prefix else "the top level"
-                self.fail(_join(prefix, k), data[k], "unknown key",
+                self.fail(v.join(prefix, str(k)), data[k], "unknown key",
                           f"{hint}allowed at {where}: {', '.join(allowed)}")
-
-    def number(self, value: Any, key: str, *, positive: bool = True) -> float:
-        if isinstance(value, bool) or not isinstance(value, (int, float)):
-            self.fail(key, value, f"must be a number, not {_kind(value)}")
-        if not math.isfinite(value):
-            self.fail(key, value, "must be a finite number")
-        if positive and value <= 0:
-            self.fail(key, value, "must be greater than zero")
-        return float(value)
-
-    def integer(self, value: Any, key: str, *, minimum: int = 0) -> int:
-        if isinstance(value, bool) or not isinstance(value, int):
-            if isinstance(value, float) and value.is_integer():
-                value = int(value)
-            else:
-                self.fail(key, value, f"must be a whole number, not {_kind(value)}")
-        if value < minimum:
-            self.fail(key, value, f"must be at least {minimum}")
-        return int(value)
-
-    def text(self, value: Any, key: str) -> str:
-        if not isinstance(value, str):
-            self.fail(key, value, f"must be text, not {_kind(value)}")
-        return value
-
-    def element(self, value: Any, key: str) -> str:
-        from ase.data import atomic_numbers
-
-        symbol = self.text(value, key)
-        if symbol not in atomic_numbers or symbol == "X":
-            near = difflib.get_close_matches(symbol.capitalize(), _symbols(), n=1, cutoff=0.5)
-            hint = f"did you mean `{near[0]}`? " if near else ""
-            self.fail(key, value, "is not a chemical element symbol",
-                      f"{hint}use a symbol such as Cu, Fe or Si (capitalised)")
-        return symbol
 
     def one_of(self, data: dict, keys: tuple[str, ...], prefix: str, *, required: bool) -> str | None:
         given = [k for k in keys if k in data]
         if len(given) > 1:
-            self.fail(_join(prefix, given[1]), data[given[1]],
-                      f"cannot be given together with `{_join(prefix, given[0])}`",
+            self.fail(v.join(prefix, given[1]), data[given[1]],
+                      f"cannot be given together with `{v.join(prefix, given[0])}`",
                       f"give exactly one of {', '.join(keys)}")
         if not given:
             if required:
@@ -307,22 +371,12 @@ class _Checker:
             return None
         return given[0]
 
-
-def _join(prefix: str, key: str) -> str:
-    return f"{prefix}.{key}" if prefix else key
-
-
-def _kind(value: Any) -> str:
-    if value is None:
-        return "empty"
-    return {dict: "a mapping", list: "a list", str: "text", bool: "true/false"}.get(
-        type(value), type(value).__name__)
-
-
-def _symbols() -> list[str]:
-    from ase.data import chemical_symbols
-
-    return chemical_symbols[1:]
+    def list_of_mappings(self, value: Any, key: str) -> list:
+        if isinstance(value, dict):
+            value = [value]
+        if not isinstance(value, list):
+            self.fail(key, value, "must be a list of mappings")
+        return value
 
 
 TOP_KEYS = ("name", "crystal", "size", "seed", "outputs", "defects", "types", "checks", "sweep")
@@ -332,7 +386,7 @@ DEFECT_KEYS = ("vacancies", "substitutions", "interstitials", "min_separation")
 VACANCY_KEYS = ("count", "fraction", "on")
 SUBSTITUTION_KEYS = ("element", "count", "fraction", "on")
 INTERSTITIAL_KEYS = ("element", "site", "count", "fraction")
-CHECK_KEYS = ("min_distance",)
+CHECK_KEYS = ("min_distance", "physical_spacing")
 
 
 def parse_recipe(data: Any, lines: Lines | None = None, file: str | None = None) -> Recipe:
@@ -342,7 +396,7 @@ def parse_recipe(data: Any, lines: Lines | None = None, file: str | None = None)
     """
     c = _Checker(lines, file)
     if not isinstance(data, dict):
-        raise InputError(f"a recipe must be a mapping of keys, not {_kind(data)}",
+        raise InputError(f"a recipe must be a mapping of keys, not {v.kind(data)}",
                          hint="see `cellbuild template fcc`", file=file)
     c.known_keys(data, TOP_KEYS, "")
     if "sweep" in data:
@@ -351,25 +405,16 @@ def parse_recipe(data: Any, lines: Lines | None = None, file: str | None = None)
     for key in ("name", "crystal", "size"):
         if key not in data:
             c.fail_missing(key, "is required", "see `cellbuild template fcc`")
-    name = _name(c, data["name"])
+    name = data["name"]
+    if isinstance(name, (int, float)) and not isinstance(name, bool):
+        name = str(name)  # data built in Python; a file's name is always read as text
     crystal = _crystal(c, data["crystal"])
     size = _size(c, data["size"])
-    seed = c.integer(data.get("seed", 0), "seed") if "seed" in data else 0
-    if seed >= 2**63:
-        c.fail("seed", seed, "must be below 2**63")
-    outputs = _outputs(c, data.get("outputs", list(DEFAULT_OUTPUTS)))
     defects = _defects(c, data.get("defects", {}), crystal)
-    types = _types(c, data["types"]) if "types" in data else None
     checks = _checks(c, data.get("checks", {}))
-    recipe = Recipe(name=name, crystal=crystal, size=size, seed=seed, outputs=outputs,
-                    defects=defects, types=types, checks=checks, source=file)
-    if types is not None:
-        needed = Recipe(name, crystal, size, defects=defects).elements()
-        missing = [e for e in needed if e not in types]
-        if missing:
-            c.fail("types", list(types), f"does not list {', '.join(missing)}",
-                   "list every element the recipe uses")
-    return recipe
+    fields = {k: data[k] for k in ("seed", "outputs", "types") if k in data}
+    return c.make(Recipe, "", name=name, crystal=crystal, size=size, defects=defects,
+                  checks=checks, source=file, **fields)
 
 
 def load_recipe(path: str | Path) -> Recipe:
@@ -378,100 +423,31 @@ def load_recipe(path: str | Path) -> Recipe:
     return parse_recipe(data, lines, str(path))
 
 
-def _name(c: _Checker, value: Any) -> str:
-    if isinstance(value, (int, float)) and not isinstance(value, bool):
-        value = str(value)
-    name = c.text(value, "name")
-    if not NAME_PATTERN.match(name) or set(name) == {"."} or name.startswith("."):
-        c.fail("name", value, "is not a safe file stem",
-               "use letters, digits, '-', '_' and '.', not starting with '.', at most 200 characters")
-    return name
-
-
 def _crystal(c: _Checker, value: Any) -> Crystal:
     data = c.mapping(value, "crystal")
     c.known_keys(data, CRYSTAL_KEYS, "crystal")
     for key in ("element", "lattice"):
         if key not in data:
             c.fail_missing(f"crystal.{key}", "is required")
-    element = c.element(data["element"], "crystal.element")
-    lattice = c.text(data["lattice"], "crystal.lattice")
-    if lattice not in LATTICES:
-        c.fail("crystal.lattice", lattice, "is not a known lattice",
-               f"known lattices: {', '.join(LATTICES)}")
-    which = c.one_of(data, ("a", "density", "radius"), "crystal", required=False)
-    values = {}
-    if which:
-        values[which] = c.number(data[which], f"crystal.{which}")
-    return Crystal(element=element, lattice=lattice, **values)
+    return c.make(Crystal, "", **data)
 
 
 def _size(c: _Checker, value: Any) -> Size:
     data = c.mapping(value, "size")
     c.known_keys(data, SIZE_KEYS, "size")
-    which = c.one_of(data, SIZE_KEYS, "size", required=True)
-    raw = data[which]
-    key = f"size.{which}"
-    if which == "repeat":
-        if isinstance(raw, int) and not isinstance(raw, bool):
-            raw = [raw] * 3
-        if not isinstance(raw, list) or len(raw) != 3:
-            c.fail(key, raw, "must be a list of three whole numbers (or one number for all axes)")
-        return Size(repeat=tuple(c.integer(v, f"{key}[{i}]", minimum=1) for i, v in enumerate(raw)))
-    if which == "atoms":
-        return Size(atoms=c.integer(raw, key, minimum=1))
-    if isinstance(raw, (int, float)) and not isinstance(raw, bool):
-        raw = [raw] * 3
-    if not isinstance(raw, list) or len(raw) != 3:
-        c.fail(key, raw, "must be a length in Angstrom or a list of three")
-    return Size(min_length=tuple(c.number(v, f"{key}[{i}]") for i, v in enumerate(raw)))
-
-
-def _outputs(c: _Checker, value: Any) -> tuple[str, ...]:
-    if isinstance(value, str):
-        value = [value]
-    if not isinstance(value, list) or not value:
-        c.fail("outputs", value, "must be a non-empty list of formats",
-               f"known formats: {', '.join(FORMAT_KEYS)}")
-    seen: list[str] = []
-    for i, item in enumerate(value):
-        if item not in FORMAT_KEYS:
-            near = difflib.get_close_matches(str(item), FORMAT_KEYS, n=1, cutoff=0.5)
-            hint = f"did you mean `{near[0]}`? " if near else ""
-            c.fail(f"outputs[{i}]", item, "is not a known output format",
-                   f"{hint}known formats: {', '.join(FORMAT_KEYS)}")
-        if item in seen:
-            c.fail(f"outputs[{i}]", item, "is listed twice")
-        seen.append(item)
-    return tuple(seen)
-
-
-def _types(c: _Checker, value: Any) -> tuple[str, ...]:
-    if not isinstance(value, list) or not value:
-        c.fail("types", value, "must be a list of element symbols in LAMMPS type order")
-    symbols = tuple(c.element(v, f"types[{i}]") for i, v in enumerate(value))
-    if len(set(symbols)) != len(symbols):
-        c.fail("types", value, "lists an element twice")
-    return symbols
+    c.one_of(data, SIZE_KEYS, "size", required=True)
+    return c.make(Size, "", **data)
 
 
 def _checks(c: _Checker, value: Any) -> Checks:
     data = c.mapping(value, "checks")
     c.known_keys(data, CHECK_KEYS, "checks")
-    if "min_distance" in data:
-        return Checks(min_distance=c.number(data["min_distance"], "checks.min_distance"))
-    return Checks()
+    return c.make(Checks, "", **data)
 
 
 def _amount(c: _Checker, data: dict, prefix: str) -> Amount:
     which = c.one_of(data, ("count", "fraction"), prefix, required=True)
-    key = f"{prefix}.{which}"
-    if which == "count":
-        return Amount(count=c.integer(data["count"], key))
-    fraction = c.number(data["fraction"], key, positive=False)
-    if not 0.0 <= fraction <= 1.0:
-        c.fail(key, data["fraction"], "must lie between 0 and 1")
-    return Amount(fraction=fraction)
+    return c.make(Amount, prefix, **{which: data[which]})
 
 
 def _defects(c: _Checker, value: Any, crystal: Crystal) -> Defects:
@@ -479,25 +455,24 @@ def _defects(c: _Checker, value: Any, crystal: Crystal) -> Defects:
     c.known_keys(data, DEFECT_KEYS, "defects")
     vacancies = None
     if "vacancies" in data:
-        v = c.mapping(data["vacancies"], "defects.vacancies")
-        c.known_keys(v, VACANCY_KEYS, "defects.vacancies")
-        on = c.element(v["on"], "defects.vacancies.on") if "on" in v else crystal.element
-        vacancies = Vacancies(_amount(c, v, "defects.vacancies"), on)
+        key = "defects.vacancies"
+        s = c.mapping(data["vacancies"], key)
+        c.known_keys(s, VACANCY_KEYS, key)
+        vacancies = c.make(Vacancies, "", _amount(c, s, key), s.get("on", crystal.element))
     subs = []
-    for i, item in enumerate(_list(c, data.get("substitutions", []), "defects.substitutions")):
+    for i, item in enumerate(c.list_of_mappings(data.get("substitutions", []),
+                                                "defects.substitutions")):
         key = f"defects.substitutions[{i}]"
         s = c.mapping(item, key)
         c.known_keys(s, SUBSTITUTION_KEYS, key)
         if "element" not in s:
             c.fail_missing(f"{key}.element", "is required")
-        element = c.element(s["element"], f"{key}.element")
-        on = c.element(s["on"], f"{key}.on") if "on" in s else crystal.element
-        if element == on:
-            c.fail(f"{key}.element", element, f"substitutes `{on}` by itself")
-        subs.append(Substitution(element, _amount(c, s, key), on))
+        subs.append(c.make(Substitution, key, s["element"], _amount(c, s, key),
+                           s.get("on", crystal.element)))
     inters = []
     sites = LATTICES[crystal.lattice].interstitials
-    for i, item in enumerate(_list(c, data.get("interstitials", []), "defects.interstitials")):
+    for i, item in enumerate(c.list_of_mappings(data.get("interstitials", []),
+                                                "defects.interstitials")):
         key = f"defects.interstitials[{i}]"
         s = c.mapping(item, key)
         c.known_keys(s, INTERSTITIAL_KEYS, key)
@@ -505,21 +480,7 @@ def _defects(c: _Checker, value: Any, crystal: Crystal) -> Defects:
             if need not in s:
                 c.fail_missing(f"{key}.{need}", "is required",
                                f"sites of {crystal.lattice}: {', '.join(sites)}")
-        element = c.element(s["element"], f"{key}.element")
-        site = c.text(s["site"], f"{key}.site")
-        if site not in sites:
-            c.fail(f"{key}.site", site, f"is not an interstitial site of {crystal.lattice}",
-                   f"sites of {crystal.lattice}: {', '.join(sites)}")
-        inters.append(Interstitial(element, site, _amount(c, s, key)))
-    separation = None
-    if "min_separation" in data:
-        separation = c.number(data["min_separation"], "defects.min_separation")
-    return Defects(vacancies, tuple(subs), tuple(inters), separation)
+        inters.append(c.make(Interstitial, key, s["element"], s["site"], _amount(c, s, key)))
+    return c.make(Defects, "", vacancies, tuple(subs), tuple(inters),
+                  data.get("min_separation"))
 
-
-def _list(c: _Checker, value: Any, key: str) -> list:
-    if isinstance(value, dict):
-        value = [value]
-    if not isinstance(value, list):
-        c.fail(key, value, "must be a list of mappings")
-    return value
