@@ -313,7 +313,7 @@ class _Checker:
     located at the recipe key."""
 
     def __init__(self, lines: Lines | None, file: str | None) -> None:
-        self.lines = lines or {}
+        self.lines = lines if lines is not None else {}
         self.file = file
 
     def line_of(self, key: str) -> int | None:

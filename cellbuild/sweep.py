@@ -22,7 +22,7 @@ import itertools
 import re
 from dataclasses import dataclass
 from pathlib import Path
-from typing import Any, Mapping
+from typing import Any, Iterator, Mapping
 
 from .errors import InputError
 from .recipe import (CHECK_KEYS, CRYSTAL_KEYS, DEFECT_KEYS, INTERSTITIAL_KEYS, NAME_PATTERN,
@@ -272,7 +272,7 @@ def _point(base: dict, name: str, sweep: list, combo: tuple[int, ...],
     and validate it as a recipe."""
     data = copy.deepcopy(base)
     data["name"] = name
-    point_lines = dict(lines)
+    moved: dict[str, int] = {}
     values = {}
     for (key, path, options), i in zip(sweep, combo):
         values[key] = options[i]
@@ -280,10 +280,8 @@ def _point(base: dict, name: str, sweep: list, combo: tuple[int, ...],
         # errors about a swept key point at the line of its value in the sweep
         line = lines.get(f"sweep.{key}[{i}]", lines.get(f"sweep.{key}"))
         if line is not None:
-            target = _recipe_key(path)
-            point_lines = {k: v for k, v in point_lines.items()
-                           if k != target and not k.startswith((f"{target}.", f"{target}["))}
-            point_lines[target] = line
+            moved[_recipe_key(path)] = line
+    point_lines = _PointLines(lines, moved) if moved else lines
     try:
         recipe = parse_recipe(data, point_lines, file)
     except InputError as exc:
@@ -321,3 +319,31 @@ def _set(data: dict, path: tuple[str, ...], value: Any, where: str,
         node[int(path[-1])] = value
     elif isinstance(node, dict):
         node[path[-1]] = value
+
+
+class _PointLines(Mapping):
+    """The recipe's key -> line table as one point sees it, without copying it
+    (a copy per point would make a 100,000-point sweep quadratic): each swept
+    key is at the line of its value in the sweep, and the keys below it, which
+    the point's value replaced, have no line of their own."""
+
+    def __init__(self, lines: Mapping[str, int], moved: dict[str, int]) -> None:
+        self._lines = lines
+        self._moved = moved
+
+    def _hidden(self, key: str) -> bool:
+        return any(key.startswith((f"{t}.", f"{t}[")) for t in self._moved)
+
+    def __getitem__(self, key: str) -> int:
+        if key in self._moved:
+            return self._moved[key]
+        if self._hidden(key):
+            raise KeyError(key)
+        return self._lines[key]
+
+    def __iter__(self) -> Iterator[str]:
+        yield from self._moved
+        yield from (k for k in self._lines if k not in self._moved and not self._hidden(k))
+
+    def __len__(self) -> int:
+        return sum(1 for _ in self)
