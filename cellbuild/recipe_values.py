@@ -100,7 +100,9 @@ def element(value: Any, key: str) -> str:
 
 
 def sequence(value: Any, key: str, message: str) -> tuple:
-    """A list or tuple as a tuple."""
+    """A list, tuple or numpy array as a tuple (of Python numbers, for an array)."""
+    if type(value).__module__ == "numpy" and getattr(value, "ndim", 0) == 1:
+        value = value.tolist()
     if isinstance(value, (str, bytes)) or not isinstance(value, (list, tuple)):
         fail(key, value, message)
     return tuple(value)
