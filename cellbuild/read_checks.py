@@ -122,3 +122,53 @@ def first_bad_number_line(path: Path) -> int | None:
                 if not math.isfinite(value) or abs(value) > MAX_LENGTH:
                     return number
     return None
+
+
+def check_poscar(path: Path) -> None:
+    """InputError naming the line where a POSCAR departs from its layout: title,
+    scale (1 or 3 numbers), three lattice vectors, optional species names,
+    counts, optional "Selective dynamics", the coordinate mode, then one row
+    of at least three numbers per atom. (ASE's reader raises RuntimeError or
+    IndexError on such files; this keeps it from seeing them.)"""
+    with open(path, encoding="utf-8", errors="replace") as handle:
+        lines = handle.read().splitlines()
+
+    def refuse(k: int, what: str):
+        raise InputError(f"is not a valid POSCAR: line {k + 1} should hold {what}",
+                         file=str(path), line=k + 1)
+
+    def numbers(k: int, n: int) -> list[float]:
+        fields = lines[k].split() if k < len(lines) else []
+        try:
+            values = [float(f) for f in fields[:n]]
+        except ValueError:
+            values = []
+        if len(values) < n:
+            refuse(k, f"{n} number(s)")
+        return values
+
+    if len(lines) < 8:
+        refuse(len(lines) - 1 if lines else 0, "more: the file ends before its atom rows")
+    scale = lines[1].split()
+    if len(scale) not in (1, 3):
+        refuse(1, "the scale factor (1 or 3 numbers)")
+    numbers(1, len(scale))
+    for k in (2, 3, 4):
+        numbers(k, 3)
+    k = 5
+    if not all(re.fullmatch(r"\d+", t) for t in lines[5].split()):
+        k = 6  # species names on line 6, counts on line 7
+    counts = lines[k].split() if k < len(lines) else []
+    if not counts or not all(re.fullmatch(r"\d{1,18}", t) for t in counts):
+        refuse(k, "the atom count of each species (whole numbers)")
+    k += 1
+    if k < len(lines) and lines[k].strip()[:1] in "sS":
+        k += 1
+    if k >= len(lines) or lines[k].strip()[:1] not in "dDcCkK":
+        refuse(min(k, len(lines) - 1), "the coordinate mode (Direct or Cartesian)")
+    total = sum(int(t) for t in counts)
+    for row in range(k + 1, k + 1 + total):
+        if row >= len(lines):
+            raise InputError(f"ends before its {total:,} atom rows are complete; the file "
+                             "looks truncated", file=str(path), line=len(lines))
+        numbers(row, 3)

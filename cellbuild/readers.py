@@ -25,7 +25,7 @@ from pathlib import Path
 import numpy as np
 
 from .errors import InputError
-from .read_checks import check_claimed_counts, check_values
+from .read_checks import check_claimed_counts, check_poscar, check_values
 from .structure import Structure
 
 #: Formats and how a user would recognise them in messages.
@@ -210,7 +210,23 @@ def _read_cif(path: Path, types, fast) -> ReadResult:
     site against all earlier ones, which takes minutes at 60,000 atoms); ASE's
     reader for everything else; pymatgen's parser when ASE refuses the file."""
     text = path.read_text(errors="replace")
+    first = re.search(r"^[ \t]*([^#\s].*)$", text, re.MULTILINE)
+    if first is None or not first.group(1).lower().startswith("data_"):
+        # ASE's parser asserts this rather than raising
+        raise InputError("does not start with a data_ block, so it is no CIF",
+                         file=str(path),
+                         line=None if first is None else text.count("\n", 0, first.start()) + 1)
     loops = _cif_loops(text)
+    # pymatgen's parser divides by the column count and by the rows: refuse a
+    # loop without either (the CIF syntax requires both) before it sees one
+    empty = next((lp for lp in loops if not lp.heads or not lp.rows()), None)
+    if empty is not None:
+        what = "column names" if not empty.heads else "values"
+        raise InputError(f"has a loop_ without {what}; the file looks damaged",
+                         file=str(path), line=empty.body_line)
+    for loop in loops:  # ASE's parser raises RuntimeError on a broken last row
+        _check_cif_loop_rows(path, loop)
+    _check_cif_numbers(path, text, loops)
     partial = _cif_partial_occupancy(loops)
     # a disordered table lists several atoms on one site: ASE's reader keeps one
     structure = None if partial else _fast_p1_cif(text, loops)
@@ -227,6 +243,67 @@ def _read_cif(path: Path, types, fast) -> ReadResult:
     if not partial:
         _check_cif_complete(path, structure, text, loops)
     return ReadResult(structure, "cif", reader, partial_occupancy=partial)
+
+
+def _check_cif_loop_rows(path: Path, loop: _CifLoop) -> None:
+    """InputError when a loop's values do not fill whole rows of its columns
+    (loops with multi-line text fields are left to the readers)."""
+    if re.search(r"^;", loop.body, re.MULTILINE):
+        return
+    if any(q in loop.body for q in "'\"#"):
+        tokens = sum(len(_cif_fields(row)) for row in loop.rows())
+    else:
+        tokens = len(loop.body.split())
+    if tokens % len(loop.heads):
+        body = loop.body.rstrip()
+        raise InputError(f"has a loop of {len(loop.heads)} columns whose {tokens} values do "
+                         "not fill whole rows; the file looks truncated or damaged",
+                         file=str(path), line=loop.body_line + body.count("\n"))
+
+
+_CIF_COORDINATES = ("_atom_site_fract_x", "_atom_site_fract_y", "_atom_site_fract_z",
+                    "_atom_site_cartn_x", "_atom_site_cartn_y", "_atom_site_cartn_z")
+
+
+def _check_cif_numbers(path: Path, text: str, loops: list[_CifLoop]) -> None:
+    """InputError naming the line of a cell parameter or atom coordinate that is
+    not a number (uncertainties such as 0.25(1) allowed): ASE's reader keeps
+    such a value as text and fails on it later with a TypeError."""
+    for match in _SINGLE_VALUE.finditer(text):
+        if match.group(1).lower() in _CIF_CELL_TAGS and not _cif_number(match.group(2)):
+            raise InputError(f"has {match.group(1)} = {match.group(2)!r}, which is not a number",
+                             file=str(path), line=text.count("\n", 0, match.start()) + 1)
+    table = _atom_site_loop(loops)
+    if table is None:
+        return
+    columns = [k for k, h in enumerate(table.heads) if h in _CIF_COORDINATES]
+    if not columns:
+        return
+    width = len(table.heads)
+    quoted = any(q in table.body for q in "'\"#")
+    fields = ([f for row in table.rows() for f in _cif_fields(row)] if quoted
+              else table.body.split())
+    values = np.array(fields[:len(fields) - len(fields) % width], dtype=str).reshape(-1, width)
+    coordinates = np.char.partition(np.char.strip(values[:, columns], "'\""), "(")[:, :, 0]
+    try:
+        coordinates.astype(np.float64)
+        return
+    except ValueError:  # error path only: find the row
+        bad = next(k for k, row in enumerate(coordinates.tolist())
+                   if not all(_cif_number(v) for v in row))
+    body_rows = [k for k, ln in enumerate(table.body.splitlines())
+                 if ln.strip() and not ln.lstrip().startswith("#")]
+    raise InputError("has an atom coordinate that is not a number",
+                     file=str(path), line=table.body_line + body_rows[min(bad, len(body_rows) - 1)])
+
+
+def _cif_number(value: str) -> bool:
+    """True for a CIF number, with or without an uncertainty in brackets."""
+    try:
+        float(value.strip("'\"").split("(")[0])
+    except ValueError:
+        return False
+    return True
 
 
 def _cif_partial_occupancy(loops: list[_CifLoop]) -> list[dict]:
@@ -519,6 +596,7 @@ def _warn_pbc(pbc) -> None:
 
 
 def _read_vasp(path: Path, types, fast) -> ReadResult:
+    check_poscar(path)
     return ReadResult(Structure.from_ase(_ase_read(path, "vasp")), "vasp", "ase")
 
 
