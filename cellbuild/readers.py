@@ -255,6 +255,14 @@ def _check_cif_loop_rows(path: Path, loop: _CifLoop) -> None:
     else:
         tokens = len(loop.body.split())
     if tokens % len(loop.heads):
+        width = len(loop.heads)
+        # error path only: name the first row whose field count is off
+        for offset, row in enumerate(loop.body.splitlines()):
+            if row.strip() and not row.lstrip().startswith("#") and (
+                    len(_cif_fields(row)) != width):
+                raise InputError(f"has an atom row with {len(_cif_fields(row))} fields "
+                                 f"where the table has {width} columns", file=str(path),
+                                 line=loop.body_line + offset)
         body = loop.body.rstrip()
         raise InputError(f"has a loop of {len(loop.heads)} columns whose {tokens} values do "
                          "not fill whole rows; the file looks truncated or damaged",
