@@ -220,7 +220,7 @@ def _spacing_warnings(recipe: Recipe, a: float) -> tuple[str, ...]:
     verdict = judge(nearest_neighbour_distance(recipe.crystal.lattice, a), element, element)
     if verdict.plausible:
         return ()
-    if not getattr(recipe.checks, "physical_spacing", True):  # FIXME once Checks has it
+    if not recipe.checks.physical_spacing:
         return (f"the lattice constant {verdict.describe()}; built anyway because "
                 "checks.physical_spacing is false",)
     raise InputError(verdict.describe(), key=_constant_key(recipe),

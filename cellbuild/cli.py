@@ -323,7 +323,7 @@ def inspect_files(
     types: Optional[str] = typer.Option(None, "--types",
                                         help="Element of each LAMMPS atom type, e.g. Cu,Ni."),
     expect: Optional[str] = typer.Option(None, "--expect",
-                                         help="Fail unless the file matches sc, bcc, fcc or diamond."),
+                                         help="Fail unless the file matches sc, bcc, fcc, diamond or hcp."),
     cutoff: Optional[float] = typer.Option(None, "--cutoff",
                                            help="Neighbour cutoff in Angstrom (default: automatic)."),
     potential_cutoff: Optional[float] = typer.Option(
@@ -374,14 +374,14 @@ def _inspect_options(types, expect, cutoff, potential_cutoff, plot) -> Optional[
     """Validate the options of `inspect`; the --types symbols as a list (or None)."""
     import math
 
-    from .lattices import LATTICES
+    from .inspection import EXPECT_CHOICES
 
     for key, value in (("--cutoff", cutoff), ("--potential-cutoff", potential_cutoff)):
         if value is not None and not (math.isfinite(value) and value > 0):
             raise InputError("must be a positive distance in Angstrom", key=key, value=value)
-    if expect is not None and expect not in LATTICES:
+    if expect is not None and expect not in EXPECT_CHOICES:
         raise InputError("is not a lattice cellbuild knows", key="--expect", value=expect,
-                         hint=f"use one of {', '.join(LATTICES)}")
+                         hint=f"use one of {', '.join(EXPECT_CHOICES)}")
     if plot is not None and not Path(plot).parent.is_dir():
         raise InputError("is in a folder that does not exist", key="--plot", value=str(plot))
     if types is None:

@@ -397,7 +397,7 @@ def test_space_group_of_a_large_supercell_from_its_repeating_unit(tmp_path):
 
 
 @pytest.mark.parametrize("option, value", [("--cutoff", "-1"), ("--potential-cutoff", "0"),
-                                           ("--expect", "hcp"), ("--types", "Cu,Qq")])
+                                           ("--expect", "bct"), ("--types", "Cu,Qq")])
 def test_bad_option_values_exit_2_naming_the_option(cli, written, option, value):
     result = cli("inspect", written[("cu-fcc", "ase-cif")], option, value)
     assert result.exit_code == 2 and option in result.output and value.split(",")[-1] in result.output

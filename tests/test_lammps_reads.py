@@ -25,6 +25,7 @@ boundary p p p
 read_data {data}
 pair_style zero {pair_cutoff}
 pair_coeff * *
+neigh_modify one 20000 page 400000
 compute cn all coord/atom cutoff {cutoff}
 dump d all custom 1 {dump} id type c_cn
 dump_modify d sort id

@@ -26,7 +26,8 @@ from cellbuild.yamlread import MAX_BYTES, MAX_DEPTH, MAX_NODES
 
 MEMORY = 1 << 30   # bytes of address space for each run
 TIMEOUT = 60       # seconds: a hang fails the test instead of the CI job
-SECONDS = 2.0      # what any refusal may take inside the command (imports excluded)
+SECONDS = 8.0      # what any refusal may take inside the command (imports excluded; generous
+                   # because CI shares 2 cores; today about 0.5 s on a quiet machine)
 
 _RUN = """\
 import sys, time

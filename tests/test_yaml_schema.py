@@ -190,7 +190,7 @@ def test_readme_recipe_reference_and_sweep_blocks_load():
     recipe = parse_recipe(data, lines, "README.md")
     # the values the block shows (README.md, "Recipe reference")
     assert recipe.crystal.a == 4.05 and recipe.size.repeat == (10, 10, 10)
-    assert recipe.types == ("Al", "Mg", "Si") and recipe.defects.vacancies.on == "Al"
+    assert recipe.types == ("Al", "Mg", "Si", "H") and recipe.defects.vacancies.on == "Al"
     assert recipe.defects.substitutions[0].amount.fraction == 0.05
     assert recipe.checks.min_distance == 1.5 and recipe.checks.physical_spacing is True
     # the sweep block stands for "crystal, size, defects as usual": those of the reference
