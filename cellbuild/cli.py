@@ -119,7 +119,7 @@ def make(
     code = EXIT_OK
     for recipe in loaded:
         with _bad_input_exits(out):
-            result = make_one(recipe, out, force=True, strict=strict,
+            result = make_one(recipe, out, force=force, strict=strict,
                               progress=_progress(recipe.name))
         _summary(result)
         if not result.passed:

@@ -126,3 +126,15 @@ def test_sigterm_mid_build_leaves_no_partial_files(tmp_path):
     assert "terminated" in err
     left = sorted(os.listdir(out)) if out.is_dir() else []
     assert left == [], left  # neither temporaries nor a partial set
+
+
+def test_two_makes_without_force_racing_for_one_name_one_refuses(tmp_path):
+    # issue reproduction: same name, same folder, no --force, started together
+    recipe = tmp_path / "r.yaml"
+    recipe.write_text(GOOD.replace("repeat: [2, 2, 2]", "repeat: [30, 30, 30]"))
+    procs = [subprocess.Popen(_cellbuild("make", recipe, "--out", tmp_path / "out"),
+                              stdout=subprocess.PIPE, stderr=subprocess.PIPE) for _ in range(2)]
+    codes = sorted(p.wait(timeout=120) for p in procs)
+    errors = b"".join(p.stderr.read() for p in procs).decode()
+    assert codes == [0, 2], errors
+    assert "already exist" in errors
