@@ -1,11 +1,16 @@
 """Property tests: whatever recipe comes in, `make` either builds (exit 0 with a
 passing report, or exit 1 with the failed checks named in the report) or
 refuses with exit 2 and one message, and never raises or leaves a file behind.
+
+Hypothesis profiles (CELLBUILD_HYPOTHESIS_PROFILE): "default", 60 examples per
+test; "ci", 400 examples and no example database, so that every run draws
+fresh examples. Either must pass for any ``--hypothesis-seed``.
 """
 from __future__ import annotations
 
 import json
 import math
+import os
 import tempfile
 from pathlib import Path
 
@@ -17,8 +22,13 @@ from typer.testing import CliRunner
 
 from cellbuild.cli import app
 
-SETTINGS = settings(max_examples=int(__import__("os").environ.get("CELLBUILD_EXAMPLES", 60)), deadline=None,
-                    suppress_health_check=[HealthCheck.too_slow])
+settings.register_profile("default", max_examples=60, deadline=None,
+                          suppress_health_check=[HealthCheck.too_slow])
+settings.register_profile("ci", max_examples=400, deadline=None, database=None,
+                          suppress_health_check=[HealthCheck.too_slow])
+# the profile is the parent of this module's settings, not loaded globally: other
+# test modules keep their own example counts
+SETTINGS = settings(settings.get_profile(os.environ.get("CELLBUILD_HYPOTHESIS_PROFILE", "default")))
 
 JUNK = st.one_of(
     st.none(), st.booleans(), st.integers(-10**12, 10**12),
@@ -118,10 +128,22 @@ def test_mutated_recipes_build_or_fail_cleanly(data):
     _check_outcome(yaml.safe_dump(data))
 
 
-@settings(max_examples=80, deadline=None)
+@SETTINGS
 @given(st.text(max_size=200))
 def test_random_text_never_raises(text):
     _check_outcome(text)
+
+
+@SETTINGS
+@given(key=st.text(max_size=12), value=JUNK, file=st.text(max_size=12), hint=st.text(max_size=12))
+def test_messages_are_one_printable_line(key, value, file, hint):
+    from cellbuild.errors import InputError, show_key
+
+    text = str(InputError("is wrong", key=key or None, value=value, file=file or None,
+                          hint=hint or None))
+    assert text.isprintable() and "\n" not in text
+    if key:
+        assert f"`{show_key(key)}` = " in text
 
 
 @pytest.fixture(scope="module")
@@ -162,8 +184,7 @@ def damaged(draw, files: dict[str, bytes]) -> tuple[str, bytes]:
 
 def test_damaged_files_inspect_cleanly(small_files):
     # inspect either reads the file (exit 0 or 1) or refuses it with one sentence (exit 2)
-    @settings(max_examples=int(__import__("os").environ.get("CELLBUILD_EXAMPLES", 60)),
-              deadline=None, suppress_health_check=[HealthCheck.too_slow])
+    @SETTINGS
     @given(damaged(small_files))
     def check(case):
         ext, data = case
