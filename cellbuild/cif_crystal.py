@@ -47,6 +47,11 @@ _SITE_TOLERANCE = 1e-4
 _CELL_TAGS = ("_cell_length_a", "_cell_length_b", "_cell_length_c",
               "_cell_angle_alpha", "_cell_angle_beta", "_cell_angle_gamma")
 _FRACT_TAGS = ("_atom_site_fract_x", "_atom_site_fract_y", "_atom_site_fract_z")
+#: Where a loop's values end: the next tag, loop or block.
+_LOOP_END = re.compile(r"^[ \t]*(?:_|loop_|data_|save_)", re.MULTILINE | re.IGNORECASE)
+#: One CIF value: a quoted string, a ;-delimited text field or a bare word.
+_TOKEN = re.compile(r"""'[^'\n]*'(?=\s|$)|"[^"\n]*"(?=\s|$)|^;[^\n]*\n(?:(?!;)[^\n]*\n)*;|\S+""",
+                    re.MULTILINE)
 
 
 @dataclass(frozen=True, eq=False)
@@ -151,23 +156,30 @@ def _read_text(path: Path, where: str) -> str:
 
 
 def _check_loops(text: str, where: str) -> None:
-    """InputError for a ``loop_`` without column names or values (pymatgen's
-    parser divides by both). Python work per loop header only, not per row."""
+    """InputError for a ``loop_`` without column names or with fewer values than
+    columns (pymatgen's parser divides by both). Python work per loop header."""
     for match in re.finditer(r"^[ \t]*loop_[ \t]*$", text, re.MULTILINE | re.IGNORECASE):
-        heads, values, pos = 0, False, match.end() + 1
+        heads, start, pos = 0, None, match.end() + 1
         while pos < len(text):
             end = text.find("\n", pos)
             end = len(text) if end < 0 else end
-            line, pos = text[pos:end].strip(), end + 1
-            if not line or line.startswith("#"):
-                continue
+            line = text[pos:end].strip()
             if line.startswith("_"):
                 heads += 1
-                continue
-            values = re.match(r"(?i)(loop_|data_|save_)", line) is None
-            break
-        if not heads or not values:
-            raise InputError(f"has a loop_ without {'values' if heads else 'column names'}",
+            elif line and not line.startswith("#"):
+                start = None if re.match(r"(?i)(loop_|data_|save_)", line) else pos
+                break
+            pos = end + 1
+        if not heads:
+            raise InputError("has a loop_ without column names", file=where,
+                             line=_line_at(text, match.start()))
+        stop = _LOOP_END.search(text, start) if start is not None else None
+        body = "" if start is None else text[start:stop.start() if stop else len(text)]
+        # plain tables split on white space; quoted or ;-delimited fields need a tokenizer
+        values = (len(_TOKEN.findall(body)) if re.search(r"['\"]|^;", body, re.MULTILINE)
+                  else len(body.split()))
+        if values < heads:
+            raise InputError(f"has a loop_ of {heads} columns with {values} value(s)",
                              file=where, line=_line_at(text, match.start()))
 
 
