@@ -25,6 +25,7 @@ from pathlib import Path
 import numpy as np
 
 from .errors import InputError
+from .neighbours import min_distance
 
 #: Largest CIF read, bytes (checked before reading).
 MAX_BYTES = 20 * 2**20
@@ -47,6 +48,10 @@ _SITE_TOLERANCE = 1e-4
 _CELL_TAGS = ("_cell_length_a", "_cell_length_b", "_cell_length_c",
               "_cell_angle_alpha", "_cell_angle_beta", "_cell_angle_gamma")
 _FRACT_TAGS = ("_atom_site_fract_x", "_atom_site_fract_y", "_atom_site_fract_z")
+#: Tags that list symmetry operations, and tags that name the space group.
+_OPS_TAGS = ("_symmetry_equiv_pos_as_xyz", "_space_group_symop_operation_xyz")
+_GROUP_TAGS = ("_symmetry_space_group_name_h-m", "_space_group_name_h-m_alt",
+               "_symmetry_int_tables_number", "_space_group_it_number")
 #: Where a loop's values end: the next tag, loop or block.
 _LOOP_END = re.compile(r"^[ \t]*(?:_|loop_|data_|save_)", re.MULTILINE | re.IGNORECASE)
 #: One CIF value: a quoted string, a ;-delimited text field or a bare word.
@@ -109,7 +114,9 @@ def crystal_from_cif(path: str | Path) -> CifCrystal:
         frac, labels, occupancy = _atom_rows(block.data, text, where)
         parser = CifParser.from_str(text if len(blocks) == 1 else str(block),
                                     occupancy_tolerance=1 + OCCUPANCY_SLACK)
-        _check_expansion(frac, parser.get_symops(block), where)
+        ops = parser.get_symops(block)
+        _check_space_group(block.data, len(ops), text, where)
+        _check_expansion(frac, ops, where)
         try:
             structure = parser.parse_structures(primitive=False)[0]
         except ValueError:  # the reasons are in the warnings
@@ -234,10 +241,11 @@ def _atom_rows(data: dict, text: str, where: str):
     if any(t not in data for t in _FRACT_TAGS):
         raise InputError("has no fractional atom coordinates (_atom_site_fract_x/y/z)",
                          file=where)
-    label_tag = "_atom_site_label" if "_atom_site_label" in data else "_atom_site_type_symbol"
-    labels = np.array(_column(data, label_tag) if label_tag in data else [], dtype=str)
-    if labels.size == 0 or labels.size != len(_column(data, _FRACT_TAGS[0])):
-        raise InputError("has no atom sites (no _atom_site_label or _atom_site_type_symbol)",
+    if "_atom_site_label" not in data:  # a required column, and pymatgen needs it
+        raise InputError("has atom sites without the _atom_site_label column", file=where)
+    labels = np.array(_column(data, "_atom_site_label"), dtype=str)
+    if labels.size != len(_column(data, _FRACT_TAGS[0])):
+        raise InputError("gives _atom_site_label and _atom_site_fract_x in different loops",
                          file=where)
     try:
         frac = np.stack([_numbers(_column(data, t)) for t in _FRACT_TAGS], axis=1)
@@ -267,6 +275,19 @@ def _atom_rows(data: dict, text: str, where: str):
                          f"at {frac[k].tolist()}, more than 1", file=where,
                          line=_row_line(text, labels[k]))
     return frac, labels, occupancy
+
+
+def _check_space_group(data: dict, n_ops: int, text: str, where: str) -> None:
+    """InputError when the file lists no symmetry operations and names a space
+    group pymatgen does not know (it would read the file as P 1)."""
+    tags = {k.lower(): (k, v) for k, v in data.items()}
+    if n_ops > 1 or any(k in tags for k in _OPS_TAGS):
+        return
+    for key, value in (tags[t] for t in _GROUP_TAGS if t in tags):
+        if str(value).strip("'\" ").replace(" ", "").lower() not in ("?", ".", "", "p1", "1"):
+            raise InputError(f"names the space group {value!r} ({key}), which pymatgen "
+                             "does not recognise, and lists no symmetry operations",
+                             file=where, line=_line_of(text, re.escape(key)))
 
 
 def _check_expansion(frac: np.ndarray, ops, where: str) -> None:
@@ -328,12 +349,11 @@ def _conventional(structure, cif_labels: np.ndarray, where: str, text: str,
                                  "no element", file=where, line=_row_line(text, name))
             amounts[species.symbol] = amounts.get(species.symbol, 0.0) + float(amount)
         occupancy.append((name, tuple(sorted(amounts.items()))))
-    i, j, _, distance = structure.get_neighbor_list(MIN_SEPARATION)
-    if len(distance):
-        k = int(np.argmin(distance))
-        raise InputError(f"has sites of labels {labels[i[k]]} and {labels[j[k]]} only "
-                         f"{distance[k]:.3f} Angstrom apart, closer than {MIN_SEPARATION:g}",
-                         file=where, line=_row_line(text, labels[i[k]]))
+    distance, i, j = min_distance(structure.lattice.matrix, structure.cart_coords)
+    if distance < MIN_SEPARATION:
+        raise InputError(f"has sites of labels {labels[i]} and {labels[j]} only "
+                         f"{distance:.3f} Angstrom apart, closer than {MIN_SEPARATION:g}",
+                         file=where, line=_row_line(text, labels[i]))
     # each label its own atom type (a stand-in species per label): symmetry then
     # maps labels onto themselves and the label index travels with the sites
     proxies = [Species("H", oxidation_state=c) for c in range(len(names))]
