@@ -31,6 +31,9 @@ from .neighbours import min_distance
 MAX_BYTES = 20 * 2**20
 #: Most sites accepted in the conventional cell (and in the file's own cell).
 MAX_SITES = 5_000
+#: Most atom rows read: several rows may share a site (mixed occupancy), but
+#: not this many per site of a MAX_SITES cell.
+MAX_ROWS = 4 * MAX_SITES
 #: Most positions the symmetry operations may generate from the atom rows
 #: before duplicates are merged; bounds the work of the expansion.
 MAX_GENERATED = 1_000_000
@@ -104,15 +107,18 @@ def crystal_from_cif(path: str | Path) -> CifCrystal:
     with warnings.catch_warnings(record=True) as caught:
         warnings.simplefilter("always")
         try:
-            blocks = [b for b in CifFile.from_str(text).data.values()
-                      if "_atom_site_fract_x" in b.data or "_atom_site_label" in b.data]
-        except ValueError as exc:  # pymatgen: a loop row with too few values
+            every = list(CifFile.from_str(text).data.values())
+        except ValueError as exc:  # pymatgen: a loop whose values do not fill its rows
             raise InputError(f"is not a readable CIF ({_sentence(exc)})", file=where) from None
+        blocks = [b for b in every if "_atom_site_fract_x" in b.data
+                  or "_atom_site_label" in b.data]
         if not blocks:
             raise InputError("has no atom sites (no _atom_site_ loop)", file=where)
         block = blocks[0]
         frac, labels, occupancy = _atom_rows(block.data, text, where)
-        parser = CifParser.from_str(text if len(blocks) == 1 else str(block),
+        _count_sites(frac, np.eye(3)[None], np.zeros((1, 3)), where)  # before the symmetry
+        # only the chosen block reaches the parser (it would parse every block)
+        parser = CifParser.from_str(text if len(every) == 1 else str(block),
                                     occupancy_tolerance=1 + OCCUPANCY_SLACK)
         ops = parser.get_symops(block)
         _check_space_group(block.data, len(ops), text, where)
@@ -163,31 +169,35 @@ def _read_text(path: Path, where: str) -> str:
 
 
 def _check_loops(text: str, where: str) -> None:
-    """InputError for a ``loop_`` without column names or with fewer values than
-    columns (pymatgen's parser divides by both). Python work per loop header."""
+    """InputError for a ``loop_`` without column names, with fewer values than
+    columns (pymatgen's parser divides by both), or an atom table of more than
+    MAX_ROWS rows. Python work per loop header line, not per row."""
     for match in re.finditer(r"^[ \t]*loop_[ \t]*$", text, re.MULTILINE | re.IGNORECASE):
-        heads, start, pos = 0, None, match.end() + 1
+        heads, start, pos = [], None, match.end() + 1
         while pos < len(text):
             end = text.find("\n", pos)
             end = len(text) if end < 0 else end
             line = text[pos:end].strip()
             if line.startswith("_"):
-                heads += 1
+                heads.append(line.split()[0].lower())
             elif line and not line.startswith("#"):
                 start = None if re.match(r"(?i)(loop_|data_|save_)", line) else pos
                 break
             pos = end + 1
+        line = _line_at(text, match.start())
         if not heads:
-            raise InputError("has a loop_ without column names", file=where,
-                             line=_line_at(text, match.start()))
+            raise InputError("has a loop_ without column names", file=where, line=line)
         stop = _LOOP_END.search(text, start) if start is not None else None
         body = "" if start is None else text[start:stop.start() if stop else len(text)]
         # plain tables split on white space; quoted or ;-delimited fields need a tokenizer
         values = (len(_TOKEN.findall(body)) if re.search(r"['\"]|^;", body, re.MULTILINE)
                   else len(body.split()))
-        if values < heads:
-            raise InputError(f"has a loop_ of {heads} columns with {values} value(s)",
-                             file=where, line=_line_at(text, match.start()))
+        if values < len(heads):
+            raise InputError(f"has a loop_ of {len(heads)} columns with {values} value(s)",
+                             file=where, line=line)
+        if "_atom_site_fract_x" in heads and values // len(heads) > MAX_ROWS:
+            raise InputError(f"has {values // len(heads):,} atom rows, more than the "
+                             f"{MAX_ROWS:,} read", file=where, line=line)
 
 
 def _column(data: dict, tag: str) -> list[str]:
@@ -294,20 +304,28 @@ def _check_expansion(frac: np.ndarray, ops, where: str) -> None:
     """InputError when the symmetry operations would make more than
     MAX_GENERATED positions, or more than MAX_SITES distinct ones, from the rows
     (counted with numpy before pymatgen's slower expansion does the work)."""
-    from scipy.spatial import cKDTree
-
-    generated = len(frac) * max(len(ops), 1)
+    generated = len(frac) * len(ops)
     if generated > MAX_GENERATED:
         raise InputError(f"has {len(frac):,} atom rows and {len(ops)} symmetry operations, "
                          f"which make {generated:,} positions, more than the "
                          f"{MAX_GENERATED:,} this reader expands", file=where)
     affine = np.array([op.affine_matrix for op in ops]).reshape(-1, 4, 4)
-    points = np.einsum("oij,nj->noi", affine[:, :3, :3], frac) + affine[:, :3, 3]
+    _count_sites(frac, affine[:, :3, :3], affine[:, :3, 3], where)
+
+
+def _count_sites(frac: np.ndarray, rotations: np.ndarray, translations: np.ndarray,
+                 where: str) -> None:
+    """InputError when the operations (rotations (m, 3, 3), translations (m, 3))
+    make more than MAX_SITES distinct positions from ``frac`` (n, 3), with
+    pymatgen's merging tolerance."""
+    from scipy.spatial import cKDTree
+
+    points = np.einsum("oij,nj->noi", rotations, frac) + translations
     points = np.mod(points.reshape(-1, 3), 1.0)
-    points[points >= 1.0] = 0.0  # np.mod(-1e-17, 1) is 1.0
     # exact duplicates first (special positions), then those a grid line splits
-    points = np.unique(np.round(points / (_SITE_TOLERANCE / 2)), axis=0) * (_SITE_TOLERANCE / 2)
-    points = np.mod(points, 1.0)
+    step = _SITE_TOLERANCE / 2
+    points = np.mod(np.unique(np.round(points / step), axis=0) * step, 1.0)
+    points[points >= 1.0] = 0.0  # np.mod(-1e-17, 1) is 1.0
     pairs = cKDTree(points, boxsize=1.0).query_pairs(_SITE_TOLERANCE, p=np.inf,
                                                      output_type="ndarray")
     count = len(points) - len(np.unique(pairs[:, 1]))

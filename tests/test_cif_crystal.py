@@ -243,6 +243,17 @@ def test_conventional_cell_above_the_site_cap_is_refused(tmp_path, monkeypatch):
         crystal_from_cif(path)
 
 
+def test_the_first_block_with_atoms_is_read_and_others_are_noted(rutile, tmp_path):
+    one = rutile.read_text()
+    path = tmp_path / "blocks.cif"
+    path.write_text("data_global\n_journal_year 2020\n\n" + one)
+    c = crystal_from_cif(path)
+    assert c.space_group[1] == 136 and len(c.basis) == 6 and c.notes == ()
+    path.write_text(one + "\n" + one.replace("data_TiO2", "data_second"))
+    c = crystal_from_cif(path)
+    assert len(c.basis) == 6 and any("holds 2 structures" in n for n in c.notes)
+
+
 def test_missing_file_and_folder_are_refused(tmp_path):
     with pytest.raises(InputError, match="cannot be read"):
         crystal_from_cif(tmp_path / "nothing.cif")
@@ -301,6 +312,18 @@ def _hostile_files(folder):
     many = "\n".join(f"C{k} C 0.{k:05d} 0.1 0.2 1" for k in range(6000))
     text("too_many_positions.cif", FCC_HEAD.format(a=60, group="F m -3 m") + many + "\n",
          "positions")
+    text("unknown_group.cif", FCC_HEAD.format(a=3.6, group="Q 9") + "Cu1 Cu 0 0 0 1\n",
+         "does not recognise")
+    text("no_labels.cif", FCC_HEAD.replace("_atom_site_label\n", "").format(
+        a=3.6, group="F m -3 m") + "Cu 0 0 0 1\n", "_atom_site_label")
+    text("negative_occ.cif", head + "Cu1 Cu 0 0 0 -0.5\n", "occupancies above 0")
+    text("far.cif", head + "Cu1 Cu 1e9 0 0 1\n", "at most 1000 in size")
+    rows = "\n".join(f"C{k} C {k / 20001:.6f} 0.5 0.5 1" for k in range(20001))
+    text("too_many_rows.cif", FCC_HEAD.format(a=1e4, group="P 1") + rows + "\n",
+         "20,001 atom rows")
+    rows = "\n".join(f"C{k} C {k / 6000:.6f} 0.5 0.5 1" for k in range(6000))
+    text("too_many_rows_in_p1.cif", FCC_HEAD.format(a=5e3, group="P 1") + rows + "\n",
+         "6,000 sites in its cell")
     return cases
 
 
