@@ -1,18 +1,14 @@
 """Crystals from CIF files: the conventional cell, its sites and their CIF labels.
 
-:func:`crystal_from_cif` reads one CIF (the first data block with atom sites)
-with pymatgen's parser, which applies the file's symmetry operations, and
-returns the conventional standard cell (pymatgen's
-``get_conventional_standard_structure``) with every site's fractional
-coordinates, the ``_atom_site_label`` it came from and the species and
-occupancies of each label. Symmetry is found with each label as its own atom
-type, so that every symmetry operation maps a label onto itself and the
-conventional sites carry the labels unambiguously.
-
-The file is checked before the library sees it (size, text, loops, cell, atom
-rows, occupancies, how many positions the symmetry operations would make),
-and the parsed crystal after (elements, overlapping sites, site count).
-Everything wrong with the file is an :class:`~cellbuild.errors.InputError`.
+:func:`crystal_from_cif` reads the first data block with atom sites with
+pymatgen's parser (which applies the file's symmetry operations) and returns
+pymatgen's conventional standard cell, every site's fractional coordinates, the
+``_atom_site_label`` it came from and each label's species and occupancies.
+Symmetry is found with each label as its own atom type, so every operation maps
+a label onto itself and the conventional sites carry labels unambiguously.
+The file is checked before the library sees it (size, text, loops, cell, rows,
+occupancies, positions the operations make) and the parsed crystal after
+(elements, overlaps, site count); every fault is an :class:`InputError`.
 """
 from __future__ import annotations
 
@@ -55,6 +51,9 @@ _FRACT_TAGS = ("_atom_site_fract_x", "_atom_site_fract_y", "_atom_site_fract_z")
 _OPS_TAGS = ("_symmetry_equiv_pos_as_xyz", "_space_group_symop_operation_xyz")
 _GROUP_TAGS = ("_symmetry_space_group_name_h-m", "_space_group_name_h-m_alt",
                "_symmetry_int_tables_number", "_space_group_it_number")
+#: One coordinate of a symmetry operation: x, y, z and numbers or fractions.
+_OP_TERMS = re.compile(r"[-+]?(?:[xyz]|(?:\d+(?:\.\d*)?|\.\d+)(?:/\d+)?)"
+                       r"(?:[-+](?:[xyz]|(?:\d+(?:\.\d*)?|\.\d+)(?:/\d+)?))*")
 #: Where a loop's values end: the next tag, loop or block.
 _LOOP_END = re.compile(r"^[ \t]*(?:_|loop_|data_|save_)", re.MULTILINE | re.IGNORECASE)
 #: One CIF value: a quoted string, a ;-delimited text field or a bare word.
@@ -115,27 +114,23 @@ def crystal_from_cif(path: str | Path) -> CifCrystal:
         if not blocks:
             raise InputError("has no atom sites (no _atom_site_ loop)", file=where)
         block = blocks[0]
-        frac, labels, occupancy = _atom_rows(block.data, text, where)
+        frac, labels, occupancy, metric = _atom_rows(block.data, text, where)
         _count_sites(frac, np.eye(3)[None], np.zeros((1, 3)), where)  # before the symmetry
         # only the chosen block reaches the parser (it would parse every block)
         parser = CifParser.from_str(text if len(every) == 1 else str(block),
                                     occupancy_tolerance=1 + OCCUPANCY_SLACK)
-        ops = parser.get_symops(block)
-        _check_space_group(block.data, len(ops), text, where)
-        _check_expansion(frac, ops, where)
+        ops = np.array([op.affine_matrix for op in parser.get_symops(block)])
+        _check_symmetry(block.data, ops, metric, text, where)
+        _count_sites(frac, ops[:, :3, :3], ops[:, :3, 3], where)
         try:
             structure = parser.parse_structures(primitive=False)[0]
         except ValueError:  # the reasons are in the warnings
-            reasons = [_sentence(w.message) for w in caught
-                       if "No structure parsed" in str(w.message)]
-            raise InputError("cannot be read as a crystal: " + ("; ".join(reasons) or
-                             "pymatgen's CIF parser made no structure of it"),
-                             file=where) from None
-    notes = [_sentence(w.message) for w in caught if issubclass(w.category, UserWarning)
-             and not str(w.message).startswith("Issues encountered while parsing CIF")]
+            raise InputError("cannot be read as a crystal: " + ("; ".join(
+                _notes(caught)) or "pymatgen's CIF parser made no structure of it"),
+                file=where) from None
+    notes = _notes(caught)
     if len(blocks) > 1:
-        notes.append(f"The file holds {len(blocks)} structures; the first (data_"
-                     f"{block.header}) was read.")
+        notes.append(f"The file holds {len(blocks)} structures; data_{block.header} was read.")
     return _conventional(structure, labels, where, text, notes)
 
 
@@ -147,12 +142,12 @@ def _read_text(path: Path, where: str) -> str:
             raise InputError(f"is {size:,} bytes, more than the {MAX_BYTES:,} a CIF may have",
                              file=where)
         with open(path, "rb") as handle:
-            data = handle.read(MAX_BYTES + 1)  # the file may grow after stat()
+            data = handle.read(MAX_BYTES + 1)
     except IsADirectoryError:
         raise InputError("is a folder, not a CIF file", file=where) from None
     except OSError as exc:
         raise InputError(f"cannot be read ({exc.strerror or exc})", file=where) from None
-    if len(data) > MAX_BYTES:
+    if len(data) > MAX_BYTES:  # it grew after stat()
         raise InputError(f"is more than the {MAX_BYTES:,} bytes a CIF may have", file=where)
     try:
         text = data.decode("utf-8")
@@ -230,13 +225,15 @@ def _is_number(value: str) -> bool:
 
 
 def _atom_rows(data: dict, text: str, where: str):
-    """(fractional coordinates (n, 3), labels (n,), occupancies (n,)) of the
-    atom rows, after checking the cell, the coordinates and the occupancies."""
+    """(fractional coordinates (n, 3), labels (n,), occupancies (n,), cell metric
+    tensor (3, 3) in Angstrom^2) of the atom rows, after checking the cell, the
+    coordinates and the occupancies."""
     for tag in _CELL_TAGS:
-        if tag not in data:
-            raise InputError(f"has no cell: {tag} is missing", file=where)
+        if not isinstance(data.get(tag), str):
+            raise InputError(f"has no cell: {tag} is " + ("missing" if tag not in data else
+                             "a loop, not one value"), file=where)
     try:
-        cell = _numbers([v for t in _CELL_TAGS for v in _column(data, t)[:1]])
+        cell = _numbers([data[t] for t in _CELL_TAGS])
     except ValueError as exc:
         raise InputError(f"has a cell parameter {str(exc)!r} that is not a number", file=where,
                          line=_line_of(text, re.escape(str(exc)))) from None
@@ -284,40 +281,54 @@ def _atom_rows(data: dict, text: str, where: str):
         raise InputError(f"gives label {labels[k]} occupancies that sum to {total[site[k]]:g} "
                          f"at {frac[k].tolist()}, more than 1", file=where,
                          line=_row_line(text, labels[k]))
-    return frac, labels, occupancy
+    lengths = lengths[:, None] * lengths[None, :]
+    metric = lengths * np.array([[1, c[2], c[1]], [c[2], 1, c[0]], [c[1], c[0], 1]])
+    return frac, labels, occupancy, metric
 
 
-def _check_space_group(data: dict, n_ops: int, text: str, where: str) -> None:
-    """InputError when the file lists no symmetry operations and names a space
-    group pymatgen does not know (it would read the file as P 1)."""
+def _check_symmetry(data: dict, ops: np.ndarray, metric: np.ndarray, text: str,
+                    where: str) -> None:
+    """InputError for a listed operation that is not x, y, z terms and fractions
+    making an integer matrix W of determinant +-1 that keeps the cell metric G
+    (W^T G W = G to 1e-3; pymatgen reads ``x,y,q`` or ``2x`` silently as a
+    singular matrix), and for a space group name pymatgen does not know when no
+    operations are listed (it would read the file as P 1)."""
     tags = {k.lower(): (k, v) for k, v in data.items()}
-    if n_ops > 1 or any(k in tags for k in _OPS_TAGS):
+    listed = next((tags[t] for t in _OPS_TAGS if t in tags), None)
+    if listed is not None:
+        strings = [listed[1]] if isinstance(listed[1], str) else listed[1]
+        rot = ops[:, :3, :3]
+        kept = np.einsum("oji,jk,okl->oil", rot, metric, rot) - metric
+        singular = (np.any(np.abs(rot - np.round(rot)) > 1e-9, axis=(1, 2))
+                    | (np.abs(np.abs(np.linalg.det(rot)) - 1) > 1e-9)
+                    | np.any(np.abs(kept) > 1e-3 * metric.max(), axis=(1, 2)))
+        bad = [op for op in strings if not all(re.fullmatch(_OP_TERMS, t) for t in
+                                               op.replace(" ", "").lower().split(","))
+               or op.count(",") != 2]
+        if bad or np.any(singular) or len(ops) != len(strings):
+            shown = bad[0] if bad else strings[int(np.argmax(singular))]
+            raise InputError(f"lists the symmetry operation {shown!r} ({listed[0]}), which is "
+                             "no symmetry of its cell", file=where,
+                             line=_line_of(text, re.escape(shown)) if shown else None)
         return
     for key, value in (tags[t] for t in _GROUP_TAGS if t in tags):
-        if str(value).strip("'\" ").replace(" ", "").lower() not in ("?", ".", "", "p1", "1"):
+        if len(ops) == 1 and str(value).strip("'\" ").replace(" ", "").lower() not in (
+                "?", ".", "", "p1", "1"):
             raise InputError(f"names the space group {value!r} ({key}), which pymatgen "
                              "does not recognise, and lists no symmetry operations",
                              file=where, line=_line_of(text, re.escape(key)))
 
 
-def _check_expansion(frac: np.ndarray, ops, where: str) -> None:
-    """InputError when the symmetry operations would make more than
-    MAX_GENERATED positions, or more than MAX_SITES distinct ones, from the rows
-    (counted with numpy before pymatgen's slower expansion does the work)."""
-    generated = len(frac) * len(ops)
-    if generated > MAX_GENERATED:
-        raise InputError(f"has {len(frac):,} atom rows and {len(ops)} symmetry operations, "
-                         f"which make {generated:,} positions, more than the "
-                         f"{MAX_GENERATED:,} this reader expands", file=where)
-    affine = np.array([op.affine_matrix for op in ops]).reshape(-1, 4, 4)
-    _count_sites(frac, affine[:, :3, :3], affine[:, :3, 3], where)
-
-
 def _count_sites(frac: np.ndarray, rotations: np.ndarray, translations: np.ndarray,
                  where: str) -> None:
     """InputError when the operations (rotations (m, 3, 3), translations (m, 3))
-    make more than MAX_SITES distinct positions from ``frac`` (n, 3), with
-    pymatgen's merging tolerance."""
+    make more than MAX_GENERATED positions, or more than MAX_SITES distinct ones
+    (pymatgen's merging tolerance), from ``frac`` (n, 3): counted with numpy
+    before pymatgen's slower expansion does the work."""
+    if len(frac) * len(rotations) > MAX_GENERATED:
+        raise InputError(f"has {len(frac):,} atom rows and {len(rotations)} symmetry "
+                         f"operations, which make {len(frac) * len(rotations):,} positions, "
+                         f"more than the {MAX_GENERATED:,} this reader expands", file=where)
     from scipy.spatial import cKDTree
 
     points = np.einsum("oij,nj->noi", rotations, frac) + translations
@@ -404,6 +415,12 @@ def _conventional(structure, cif_labels: np.ndarray, where: str, text: str,
                       occupancy=tuple(occupancy), space_group=space_group,
                       a=float(np.linalg.norm(cell[0])), source=where,
                       notes=tuple(dict.fromkeys(notes)))
+
+
+def _notes(caught) -> list[str]:
+    """pymatgen's warnings about the file, one line each (without its summary of them)."""
+    return [_sentence(w.message) for w in caught if issubclass(w.category, UserWarning)
+            and not str(w.message).startswith("Issues encountered while parsing CIF")]
 
 
 def _sentence(message) -> str:

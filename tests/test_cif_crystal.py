@@ -312,6 +312,14 @@ def _hostile_files(folder):
     many = "\n".join(f"C{k} C 0.{k:05d} 0.1 0.2 1" for k in range(6000))
     text("too_many_positions.cif", FCC_HEAD.format(a=60, group="F m -3 m") + many + "\n",
          "positions")
+    ops = "loop_\n_symmetry_equiv_pos_as_xyz\n'x, y, z'\n'%s'\n" + FCC_HEAD.split("\n", 8)[8]
+    ops = FCC_HEAD.format(a=3.6, group="F m -3 m").split("loop_")[0] + ops
+    text("op_word.cif", ops % "x, y, q" + "Cu1 Cu 0.1 0.2 0.3 1\n", "'x, y, q'")
+    text("op_scale.cif", ops % "2x, y, z" + "Cu1 Cu 0.1 0.2 0.3 1\n", "no symmetry of its cell")
+    # a hexagonal operation on a cubic cell (it does not keep the metric)
+    text("op_metric.cif", ops % "-y, x-y, z" + "Cu1 Cu 0.1 0.2 0.3 1\n", "'-y, x-y, z'")
+    text("cell_loop.cif", "data_x\nloop_\n_cell_length_a\n1\n2\n" + FCC_HEAD.format(
+        a=3.6, group="F m -3 m").split("\n", 2)[2] + "Cu1 Cu 0 0 0 1\n", "a loop")
     text("unknown_group.cif", FCC_HEAD.format(a=3.6, group="Q 9") + "Cu1 Cu 0 0 0 1\n",
          "does not recognise")
     text("no_labels.cif", FCC_HEAD.replace("_atom_site_label\n", "").format(
