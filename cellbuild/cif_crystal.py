@@ -48,12 +48,13 @@ _CELL_TAGS = ("_cell_length_a", "_cell_length_b", "_cell_length_c",
               "_cell_angle_alpha", "_cell_angle_beta", "_cell_angle_gamma")
 _FRACT_TAGS = ("_atom_site_fract_x", "_atom_site_fract_y", "_atom_site_fract_z")
 #: Tags that list symmetry operations, and tags that name the space group.
-_OPS_TAGS = ("_symmetry_equiv_pos_as_xyz", "_space_group_symop_operation_xyz")
+_OPS_TAGS = ("_symmetry_equiv_pos_as_xyz", "_symmetry_equiv_pos_as_xyz_",
+             "_space_group_symop_operation_xyz", "_space_group_symop_operation_xyz_")
 _GROUP_TAGS = ("_symmetry_space_group_name_h-m", "_space_group_name_h-m_alt",
                "_symmetry_int_tables_number", "_space_group_it_number")
 #: One coordinate of a symmetry operation: x, y, z and numbers or fractions.
-_OP_TERMS = re.compile(r"[-+]?(?:[xyz]|(?:\d+(?:\.\d*)?|\.\d+)(?:/\d+)?)"
-                       r"(?:[-+](?:[xyz]|(?:\d+(?:\.\d*)?|\.\d+)(?:/\d+)?))*")
+_OP_TERMS = re.compile(r"[-+]?(?:[xyz]|(?:\d+(?:\.\d*)?|\.\d+)(?:/0*[1-9]\d*)?)"
+                       r"(?:[-+](?:[xyz]|(?:\d+(?:\.\d*)?|\.\d+)(?:/0*[1-9]\d*)?))*")
 #: Where a loop's values end: the next tag, loop or block.
 _LOOP_END = re.compile(r"^[ \t]*(?:_|loop_|data_|save_)", re.MULTILINE | re.IGNORECASE)
 #: One CIF value: a quoted string, a ;-delimited text field or a bare word.
@@ -72,8 +73,14 @@ class CifCrystal:
         sublattice: the CIF site label (``_atom_site_label``) of each site.
         occupancy: ``(label, ((element, occupancy), ...))`` per label, labels and
             elements in sorted order; occupancies as fractions of a site.
-        space_group: (Hermann-Mauguin symbol, International Tables number) found by
-            spglib with a tolerance of ``SYMPREC`` = 1e-3 Angstrom, labels told apart.
+        space_group: (Hermann-Mauguin symbol, International Tables number) of the
+            ideal crystal (sites of equal species and occupancies alike, as an audit
+            of the built structure sees it), from spglib with a tolerance of
+            ``SYMPREC`` = 1e-3 Angstrom.
+        labelled_space_group: the same with each label its own atom type: the
+            symmetry ``cell`` and ``sublattice`` have. Lower than ``space_group``
+            when labels of one species are not symmetry-equivalent (a P 1 file
+            that labels every atom has P 1).
         a: length of the first lattice vector, Angstrom.
         source: the path as given.
         notes: what the parser adjusted or assumed, one sentence each.
@@ -84,6 +91,7 @@ class CifCrystal:
     sublattice: tuple[str, ...]
     occupancy: tuple[tuple[str, tuple[tuple[str, float], ...]], ...]
     space_group: tuple[str, int]
+    labelled_space_group: tuple[str, int]
     a: float
     source: str
     notes: tuple[str, ...] = ()
@@ -109,6 +117,12 @@ def crystal_from_cif(path: str | Path) -> CifCrystal:
             every = list(CifFile.from_str(text).data.values())
         except ValueError as exc:  # pymatgen: a loop whose values do not fill its rows
             raise InputError(f"is not a readable CIF ({_sentence(exc)})", file=where) from None
+        except ZeroDivisionError:
+            # pymatgen's tokenizer divides by a loop's column count and by its rows:
+            # a loop _check_loops cannot see line by line (``loop_ 'x'``, or a tag
+            # with its value inside a loop's column list) has none
+            raise InputError("has a loop_ without column names or with fewer values than "
+                             "columns", file=where) from None
         blocks = [b for b in every if "_atom_site_fract_x" in b.data
                   or "_atom_site_label" in b.data]
         if not blocks:
@@ -119,8 +133,7 @@ def crystal_from_cif(path: str | Path) -> CifCrystal:
         # only the chosen block reaches the parser (it would parse every block)
         parser = CifParser.from_str(text if len(every) == 1 else str(block),
                                     occupancy_tolerance=1 + OCCUPANCY_SLACK)
-        ops = np.array([op.affine_matrix for op in parser.get_symops(block)])
-        _check_symmetry(block.data, ops, metric, text, where)
+        ops = _symmetry(parser, block, metric, text, where)
         _count_sites(frac, ops[:, :3, :3], ops[:, :3, 3], where)
         try:
             structure = parser.parse_structures(primitive=False)[0]
@@ -286,37 +299,49 @@ def _atom_rows(data: dict, text: str, where: str):
     return frac, labels, occupancy, metric
 
 
-def _check_symmetry(data: dict, ops: np.ndarray, metric: np.ndarray, text: str,
-                    where: str) -> None:
-    """InputError for a listed operation that is not x, y, z terms and fractions
-    making an integer matrix W of determinant +-1 that keeps the cell metric G
-    (W^T G W = G to 1e-3; pymatgen reads ``x,y,q`` or ``2x`` silently as a
-    singular matrix), and for a space group name pymatgen does not know when no
-    operations are listed (it would read the file as P 1)."""
-    tags = {k.lower(): (k, v) for k, v in data.items()}
-    listed = next((tags[t] for t in _OPS_TAGS if t in tags), None)
-    if listed is not None:
-        strings = [listed[1]] if isinstance(listed[1], str) else listed[1]
-        rot = ops[:, :3, :3]
-        kept = np.einsum("oji,jk,okl->oil", rot, metric, rot) - metric
-        singular = (np.any(np.abs(rot - np.round(rot)) > 1e-9, axis=(1, 2))
-                    | (np.abs(np.abs(np.linalg.det(rot)) - 1) > 1e-9)
-                    | np.any(np.abs(kept) > 1e-3 * metric.max(), axis=(1, 2)))
-        bad = [op for op in strings if not all(re.fullmatch(_OP_TERMS, t) for t in
-                                               op.replace(" ", "").lower().split(","))
-               or op.count(",") != 2]
-        if bad or np.any(singular) or len(ops) != len(strings):
-            shown = bad[0] if bad else strings[int(np.argmax(singular))]
-            raise InputError(f"lists the symmetry operation {shown!r} ({listed[0]}), which is "
-                             "no symmetry of its cell", file=where,
-                             line=_line_of(text, re.escape(shown)) if shown else None)
-        return
-    for key, value in (tags[t] for t in _GROUP_TAGS if t in tags):
+def _symmetry(parser, block, metric: np.ndarray, text: str, where: str) -> np.ndarray:
+    """pymatgen's symmetry operations of ``block`` as (m, 4, 4) affine matrices.
+
+    InputError for a listed operation that is not three x, y, z terms and
+    fractions, and for any operation that is not an integer matrix W of
+    determinant +-1 keeping the cell metric G (W^T G W = G to 1e-3): pymatgen
+    reads ``x,y,q`` or ``2x`` silently as a singular matrix, fails on ``x/0``,
+    and applies a named group's operations to any cell. InputError too for a
+    space group name pymatgen does not know when no operations are listed (it
+    would read the file as P 1)."""
+    listed = [(k, [v] if isinstance(v, str) else list(v))
+              for k in _OPS_TAGS if (v := block.data.get(k))]
+    for key, strings in listed:
+        bad = next((op for op in strings if op.count(",") != 2 or not all(
+            _OP_TERMS.fullmatch(t) for t in op.replace(" ", "").lower().split(","))), None)
+        if bad is not None:
+            _refuse_op(bad, key, text, where)
+    ops = np.array([op.affine_matrix for op in parser.get_symops(block)])
+    rot = ops[:, :3, :3]
+    kept = np.einsum("oji,jk,okl->oil", rot, metric, rot) - metric
+    wrong = (np.any(np.abs(rot - np.round(rot)) > 1e-9, axis=(1, 2))
+             | (np.abs(np.abs(np.linalg.det(rot)) - 1) > 1e-9)
+             | np.any(np.abs(kept) > 1e-3 * metric.max(), axis=(1, 2)))
+    if listed and np.any(wrong):
+        _refuse_op(listed[0][1][int(np.argmax(wrong))], listed[0][0], text, where)
+    tags = {k.lower(): (k, v) for k, v in block.data.items()}
+    if np.any(wrong):  # operations pymatgen made from the space group's name
+        key, value = next((tags[t] for t in _GROUP_TAGS if t in tags), ("", "?"))
+        raise InputError(f"names the space group {value!r} ({key}), whose symmetry the cell "
+                         "parameters do not have", file=where,
+                         line=_line_of(text, re.escape(key)) if key else None)
+    for key, value in (tags[t] for t in _GROUP_TAGS if t in tags and not listed):
         if len(ops) == 1 and str(value).strip("'\" ").replace(" ", "").lower() not in (
                 "?", ".", "", "p1", "1"):
             raise InputError(f"names the space group {value!r} ({key}), which pymatgen "
                              "does not recognise, and lists no symmetry operations",
                              file=where, line=_line_of(text, re.escape(key)))
+    return ops
+
+
+def _refuse_op(op: str, key: str, text: str, where: str):
+    raise InputError(f"lists the symmetry operation {op!r} ({key}), which is no symmetry "
+                     "of its cell", file=where, line=_line_of(text, re.escape(op)) if op else None)
 
 
 def _count_sites(frac: np.ndarray, rotations: np.ndarray, translations: np.ndarray,
@@ -393,13 +418,13 @@ def _conventional(structure, cif_labels: np.ndarray, where: str, text: str,
     if len(conv) > MAX_SITES:
         raise InputError(f"makes {len(conv):,} sites in the conventional cell, more than the "
                          f"{MAX_SITES:,} accepted", file=where)
-    space_group = (analyzer.get_space_group_symbol(), int(analyzer.get_space_group_number()))
-    by_element = SpacegroupAnalyzer(structure, symprec=SYMPREC)
-    if by_element.get_space_group_number() != space_group[1]:
-        notes.append(f"With labels of one species treated alike the crystal has space group "
-                     f"{by_element.get_space_group_symbol()} "
-                     f"({by_element.get_space_group_number()}); its labelled sites have "
-                     f"{space_group[0]} ({space_group[1]}).")
+    labelled = (analyzer.get_space_group_symbol(), int(analyzer.get_space_group_number()))
+    ideal = SpacegroupAnalyzer(structure, symprec=SYMPREC)
+    space_group = (ideal.get_space_group_symbol(), int(ideal.get_space_group_number()))
+    if labelled != space_group:
+        notes.append(f"The labels lower the symmetry from {space_group[0]} ({space_group[1]}) "
+                     f"to {labelled[0]} ({labelled[1]}); the cell is that of the labelled "
+                     "sites.")
     site_label = np.asarray(conv.site_properties["cif_label"], dtype=np.int64)
     basis = np.mod(conv.frac_coords, 1.0)
     basis[basis >= 1.0 - 1e-10] = 0.0  # 0.99999999999 and np.mod(-1e-17, 1) are 0
@@ -413,6 +438,7 @@ def _conventional(structure, cif_labels: np.ndarray, where: str, text: str,
     return CifCrystal(cell=cell, basis=np.ascontiguousarray(basis[order]),
                       sublattice=tuple(names[site_label[order]].tolist()),
                       occupancy=tuple(occupancy), space_group=space_group,
+                      labelled_space_group=labelled,
                       a=float(np.linalg.norm(cell[0])), source=where,
                       notes=tuple(dict.fromkeys(notes)))
 

@@ -82,6 +82,7 @@ def test_hcp_titanium_two_sites_194_and_the_hexagonal_cell(tmp_path):
     c = crystal_from_cif(_write_cif(tmp_path / "ti.cif", s))
     assert c.basis.shape == (2, 3)                         # hcp: 2 atoms per cell
     assert c.space_group == ("P6_3/mmc", 194)              # International Tables
+    assert c.labelled_space_group == c.space_group and c.notes == ()
     lengths = np.linalg.norm(c.cell, axis=1)
     np.testing.assert_allclose(lengths, [2.95, 2.95, 4.68], atol=1e-6)
     gamma = np.degrees(np.arccos(c.cell[0] @ c.cell[1] / (lengths[0] * lengths[1])))
@@ -122,7 +123,8 @@ def test_rock_salt_mgo_gives_eight_sites_in_fm3m(tmp_path):
                                   [[0, 0, 0], [0.5, 0.5, 0.5]])
     c = crystal_from_cif(_write_cif(tmp_path / "mgo.cif", s))
     assert c.space_group == ("Fm-3m", 225)
-    assert Counter(c.sublattice) == {"Mg0": 4, "O1": 4}      # 4 + 4 per conventional cell
+    assert Counter(c.sublattice) == {"Mg0": 4, "O1": 4}
+    assert c.labelled_space_group == c.space_group      # 4 + 4 per conventional cell
     np.testing.assert_allclose(c.cell, 4.212 * np.eye(3), atol=1e-6)
     mg = c.basis[np.array(c.sublattice) == "Mg0"]
     o = c.basis[np.array(c.sublattice) == "O1"]
@@ -191,23 +193,37 @@ def test_labels_of_one_element_stay_apart_in_the_symmetry(tmp_path):
     rows = "Ti1 Ti 0 0 0 1\nO1 O 0.5 0.5 0 1\nO2 O 0.5 0 0.5 1\n"
     path = _cif(tmp_path, rows, a=4.0, group="P 4/m m m")
     c = crystal_from_cif(path)
-    assert c.space_group == ("P4/mmm", 123)
+    assert c.labelled_space_group == ("P4/mmm", 123)
+    assert c.space_group == ("Pm-3m", 221)                    # elements alone: L1_2
     assert Counter(c.sublattice) == {"Ti1": 1, "O1": 1, "O2": 2}
     ti = c.basis[np.array(c.sublattice) == "Ti1"][0]
     dz = lambda lab: np.abs((c.basis[np.array(c.sublattice) == lab] - ti)[:, 2] % 1.0)
     np.testing.assert_allclose(dz("O1"), [0.0], atol=1e-9)   # 1c: in the Ti plane
     np.testing.assert_allclose(dz("O2"), [0.5, 0.5], atol=1e-9)  # 2e: half a c above
-    assert any("Pm-3m (221)" in n for n in c.notes)          # elements alone: L1_2
+    assert any("from Pm-3m (221) to P4/mmm (123)" in n for n in c.notes)
 
 
-def test_the_labelled_space_group_agrees_with_spglib(rutile):
+def test_both_space_groups_agree_with_spglib(tmp_path):
     import spglib
-    from pymatgen.io.cif import CifParser
+    from pymatgen.core import Lattice, Structure
+    from pymatgen.io.cif import CifParser, CifWriter
 
-    s = CifParser(str(rutile)).parse_structures(primitive=False)[0]
-    types = np.unique(np.array(s.labels), return_inverse=True)[1].reshape(-1) + 1
-    data = spglib.get_symmetry_dataset((s.lattice.matrix, s.frac_coords, types), symprec=1e-3)
-    assert crystal_from_cif(rutile).space_group[1] == data.number
+    # Bi (A7, R-3m, 166; from memory a = 4.546, c = 11.862 A, z = 0.2341) in its
+    # primitive cell, written in P 1 with one label per atom: the labels break
+    # the inversion that swaps the two atoms
+    bi = Structure.from_spacegroup("R-3m", Lattice.hexagonal(4.546, 11.862), ["Bi"],
+                                   [[0, 0, 0.2341]]).get_primitive_structure()
+    path = tmp_path / "bi.cif"
+    CifWriter(bi).write_file(str(path))
+    s = CifParser(str(path)).parse_structures(primitive=False)[0]
+    cell = (s.lattice.matrix, s.frac_coords)
+    by_label = np.unique(np.array(s.labels), return_inverse=True)[1].reshape(-1) + 1
+    c = crystal_from_cif(path)
+    assert c.space_group[1] == spglib.get_symmetry_dataset(
+        (*cell, [83] * len(s)), symprec=1e-3).number == 166
+    assert c.labelled_space_group[1] == spglib.get_symmetry_dataset(
+        (*cell, by_label), symprec=1e-3).number != 166
+    assert len(c.basis) == 6 and len(set(c.sublattice)) == 2  # hexagonal cell: 3 x 2
 
 
 @pytest.mark.parametrize("repeat", [(2, 2, 3)])
@@ -318,6 +334,9 @@ def _hostile_files(folder):
     text("op_scale.cif", ops % "2x, y, z" + "Cu1 Cu 0.1 0.2 0.3 1\n", "no symmetry of its cell")
     # a hexagonal operation on a cubic cell (it does not keep the metric)
     text("op_metric.cif", ops % "-y, x-y, z" + "Cu1 Cu 0.1 0.2 0.3 1\n", "'-y, x-y, z'")
+    text("group_misfit.cif", FCC_HEAD.format(a=3.6, group="F m -3 m").replace(
+        "_cell_length_c 3.6", "_cell_length_c 4.0") + "Cu1 Cu 0 0 0 1\n",
+        "cell parameters do not have")
     text("cell_loop.cif", "data_x\nloop_\n_cell_length_a\n1\n2\n" + FCC_HEAD.format(
         a=3.6, group="F m -3 m").split("\n", 2)[2] + "Cu1 Cu 0 0 0 1\n", "a loop")
     text("unknown_group.cif", FCC_HEAD.format(a=3.6, group="Q 9") + "Cu1 Cu 0 0 0 1\n",
