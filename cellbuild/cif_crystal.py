@@ -128,7 +128,7 @@ def crystal_from_cif(path: str | Path) -> CifCrystal:
         if not blocks:
             raise InputError("has no atom sites (no _atom_site_ loop)", file=where)
         block = blocks[0]
-        frac, labels, occupancy, metric = _atom_rows(block.data, text, where)
+        frac, labels, metric = _atom_rows(block.data, text, where)
         _count_sites(frac, np.eye(3)[None], np.zeros((1, 3)), where)  # before the symmetry
         # only the chosen block reaches the parser (it would parse every block)
         parser = CifParser.from_str(text if len(every) == 1 else str(block),
@@ -238,9 +238,9 @@ def _is_number(value: str) -> bool:
 
 
 def _atom_rows(data: dict, text: str, where: str):
-    """(fractional coordinates (n, 3), labels (n,), occupancies (n,), cell metric
-    tensor (3, 3) in Angstrom^2) of the atom rows, after checking the cell, the
-    coordinates and the occupancies."""
+    """(fractional coordinates (n, 3), labels (n,), cell metric tensor (3, 3) in
+    Angstrom^2) of the atom rows, after checking the cell, the coordinates and
+    the occupancies."""
     for tag in _CELL_TAGS:
         if not isinstance(data.get(tag), str):
             raise InputError(f"has no cell: {tag} is " + ("missing" if tag not in data else
@@ -296,7 +296,7 @@ def _atom_rows(data: dict, text: str, where: str):
                          line=_row_line(text, labels[k]))
     lengths = lengths[:, None] * lengths[None, :]
     metric = lengths * np.array([[1, c[2], c[1]], [c[2], 1, c[0]], [c[1], c[0], 1]])
-    return frac, labels, occupancy, metric
+    return frac, labels, metric
 
 
 def _symmetry(parser, block, metric: np.ndarray, text: str, where: str) -> np.ndarray:

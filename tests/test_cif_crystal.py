@@ -188,6 +188,17 @@ def test_occupancy_rounding_is_a_note_not_an_error(tmp_path):
     assert any("sum to > 1" in n for n in c.notes)
 
 
+def test_pymatgens_warnings_become_notes_and_none_escapes(tmp_path):
+    import warnings
+
+    path = _cif(tmp_path, "Cu1 Cu 0 0 0 1\n", a=3.615)  # fcc Cu by name only: pymatgen warns
+    with warnings.catch_warnings():
+        warnings.simplefilter("error", UserWarning)
+        c = crystal_from_cif(path)
+    assert len(c.basis) == 4 and c.space_group == ("Fm-3m", 225)  # fcc: 4 atoms, 225
+    assert any("_symmetry_space_group_name_H-M used" in n for n in c.notes)
+
+
 def test_labels_of_one_element_stay_apart_in_the_symmetry(tmp_path):
     # Cu3Au-like Ti + 3 O (Pm-3m) with the face centres split into O1 (1c) and O2 (2e)
     rows = "Ti1 Ti 0 0 0 1\nO1 O 0.5 0.5 0 1\nO2 O 0.5 0 0.5 1\n"
