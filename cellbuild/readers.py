@@ -54,8 +54,11 @@ _LAMMPS_SECTIONS = ("Atoms", "Velocities", "Masses", "Atom Type Labels")
 #: (TypeError, AttributeError and AssertionError are bugs, ours or a
 #: library's, and are not caught: files are validated before a library reads
 #: them, so that garbage does not reach it.)
+#: What the libraries' readers raise for a malformed file. RuntimeError is among them:
+#: ASE's LAMMPS reader raises it for rows that do not fit the atom style, and a
+#: StopIteration inside a reader's generator (a file that ends early) surfaces as one.
 _READER_ERRORS = (ValueError, IndexError, KeyError, OSError, UnicodeDecodeError,
-                  StopIteration, EOFError)
+                  StopIteration, EOFError, RuntimeError)
 
 
 
@@ -588,9 +591,25 @@ def _read_xyz(path: Path, types, fast) -> ReadResult:
         structure = _fast_xyz(path)
         if structure is not None:
             return ReadResult(structure, "xyz", "cellbuild")
+    _refuse_word_properties(path)
     atoms = _ase_read(path, "extxyz")
     _warn_pbc(atoms.pbc)
     return ReadResult(Structure.from_ase(atoms), "xyz", "ase")
+
+
+def _refuse_word_properties(path: Path) -> None:
+    """ASE reads ``Properties=T`` as a boolean and then fails inside its parser
+    (AttributeError): refuse a Properties or Lattice value that is a bare T/F word."""
+    import re
+
+    with open(path, "rb") as handle:
+        handle.readline()
+        comment = handle.readline(1 << 20).decode("utf-8", "replace")
+    found = re.search(r"(?i)\b(Properties|Lattice)=(T|F|True|False)(?=\s|$)", comment)
+    if found:
+        raise InputError(f"`{found.group(1)}` is the word {found.group(2)!r}, not a value",
+                         hint="extended XYZ needs Lattice=\"...\" and Properties=species:S:1:pos:R:3",
+                         file=str(path), line=2)
 
 
 def _warn_pbc(pbc) -> None:
