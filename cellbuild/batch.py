@@ -141,15 +141,20 @@ def _expand(source: Source):
     from .recipe import load_yaml
     from .sweep import expand
 
-    try:
-        sha = hashlib.sha256(source.path.read_bytes()).hexdigest()
-    except OSError as exc:
-        raise InputError(f"cannot be read ({exc.strerror or exc})", file=source.recipe) from None
+    from .yamlread import MAX_BYTES
+
     try:
         data, lines = load_yaml(source.path)
     except InputError as exc:
         exc.file = source.recipe
         raise
+    # Hashed after the capped load above has accepted the file, and read with the
+    # same cap, so a recipe named for /dev/zero or a huge file cannot hang the batch.
+    try:
+        with open(source.path, "rb") as handle:
+            sha = hashlib.sha256(handle.read(MAX_BYTES + 1)).hexdigest()
+    except OSError as exc:
+        raise InputError(f"cannot be read ({exc.strerror or exc})", file=source.recipe) from None
     return sha, expand(data, lines, source.recipe)
 
 

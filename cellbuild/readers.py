@@ -237,6 +237,7 @@ def _read_cif(path: Path, types, fast) -> ReadResult:
         _check_cif_complete(path, structure, text, loops)
         return ReadResult(structure, "cif", "cellbuild (P 1 table)", partial_occupancy=partial)
     _refuse_large_cif_table(path, loops)
+    _check_cif_symbol_column(path, loops)
     try:
         atoms = _ase_read(path, "cif")
         structure, reader = Structure.from_ase(atoms), "ase"
@@ -246,6 +247,26 @@ def _read_cif(path: Path, types, fast) -> ReadResult:
     if not partial:
         _check_cif_complete(path, structure, text, loops)
     return ReadResult(structure, "cif", reader, partial_occupancy=partial)
+
+
+def _check_cif_symbol_column(path: Path, loops: list[_CifLoop]) -> None:
+    """InputError when an atom-site symbol holds no capital letter: ASE's reader
+    looks for one and fails inside itself (AttributeError) when there is none."""
+    for loop in loops:
+        tag = next((t for t in ("_atom_site_type_symbol", "_atom_site_label")
+                    if t in loop.heads), None)
+        if tag is None:
+            continue
+        column, width = loop.heads.index(tag), len(loop.heads)
+        for k, row in enumerate(loop.rows()):
+            fields = _cif_fields(row)
+            if len(fields) != width:
+                return  # rows spread over several lines: left to the readers
+            value = fields[column]
+            if value not in (".", "?") and not re.search(r"[A-Z]", value):
+                raise InputError(f"`{tag}` value {value!r} names no element",
+                                 hint="use a symbol such as Cu, Fe or Si",
+                                 file=str(path), line=loop.body_line + k)
 
 
 def _check_cif_loop_rows(path: Path, loop: _CifLoop) -> None:
@@ -390,8 +411,9 @@ def _cif_loops(text: str) -> list[_CifLoop]:
 
 def _atom_site_loop(loops: list[_CifLoop]) -> _CifLoop | None:
     """The one ``_atom_site_`` loop (anisotropic displacements aside), or None."""
-    found = [lp for lp in loops if lp.heads and lp.heads[0].startswith("_atom_site_")
-             and not lp.heads[0].startswith("_atom_site_aniso")]
+    # any column may name the loop: a damaged first tag must not hide the table
+    found = [lp for lp in loops if any(h.startswith("_atom_site_fract_")
+                                       or h.startswith("_atom_site_cartn_") for h in lp.heads)]
     return found[0] if len(found) == 1 else None
 
 
@@ -605,11 +627,25 @@ def _refuse_word_properties(path: Path) -> None:
     with open(path, "rb") as handle:
         handle.readline()
         comment = handle.readline(1 << 20).decode("utf-8", "replace")
+    hint = "extended XYZ needs Lattice=\"...\" and Properties=species:S:1:pos:R:3"
     found = re.search(r"(?i)\b(Properties|Lattice)=(T|F|True|False)(?=\s|$)", comment)
     if found:
         raise InputError(f"`{found.group(1)}` is the word {found.group(2)!r}, not a value",
-                         hint="extended XYZ needs Lattice=\"...\" and Properties=species:S:1:pos:R:3",
-                         file=str(path), line=2)
+                         hint=hint, file=str(path), line=2)
+    # A bare key (no `=`) is read by ASE as the flag True, which its parser then fails
+    # on; quoted values are blanked first so a word inside them does not count.
+    unquoted = re.sub(r'"(?:[^"\\]|\\.)*"?', '""', comment)
+    found = re.search(r"(?i)(?<![\w=])(Properties|Lattice)(?![\w=])(?!\s*=)", unquoted)
+    if found:
+        raise InputError(f"`{found.group(1)}` has no value", hint=hint, file=str(path), line=2)
+    # ASE splits the Properties value on ':' into name:type:count triples and fails
+    # inside itself (AttributeError, IndexError) on anything else.
+    found = re.search(r"(?i)(?<![\w])Properties\s*=\s*(\S*)", comment)
+    if found and not re.fullmatch(r"(?:[A-Za-z_][\w-]*:[SRILsril]:[1-9]\d*)"
+                                  r"(?::[A-Za-z_][\w-]*:[SRILsril]:[1-9]\d*)*",
+                                  found.group(1).strip('"')):
+        raise InputError(f"`Properties={found.group(1)}` is not a list of name:type:count",
+                         hint=hint, file=str(path), line=2)
 
 
 def _warn_pbc(pbc) -> None:

@@ -310,3 +310,21 @@ def test_a_stray_file_is_called_unlisted_without_guessing_who_wrote_it(lib, cli)
     line = next(line for line in result.output.splitlines() if line.startswith("stray.lmp: "))
     assert "extra" in line and "not listed in the manifest" in line
     assert "cellbuild output" not in line
+
+
+def test_a_huge_recipe_file_fails_its_entry_quickly(tmp_path):
+    """A 4 GB .yaml (sparse) is one failed entry, not a hang or an exhausted memory:
+    the recipe is read, and hashed, at most 2 MiB + 1 byte."""
+    recipes = tmp_path / "lib"
+    _write(recipes / "good.yaml", recipe_dict())
+    with open(recipes / "endless.yaml", "wb") as handle:  # sparse: no disk space used
+        handle.truncate(4 << 30)
+    start = time.monotonic()
+    result = run_cli("batch", recipes, "--out", tmp_path / "out", "--workers", "1",
+                     timeout=60, memory=2 << 30)
+    assert time.monotonic() - start < 30
+    assert "Traceback" not in result.stderr
+    manifest = json.loads((tmp_path / "out" / "manifest.json").read_text())
+    errors = {e["name"]: e.get("error") for e in manifest["structures"]}
+    assert errors.get("cu-fcc") is None, manifest
+    assert "too large" in (errors.get("endless") or ""), manifest
