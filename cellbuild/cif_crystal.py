@@ -20,6 +20,7 @@ from pathlib import Path
 
 import numpy as np
 
+from .cif_text import CIF_CELL_TAGS, CIF_FRACTIONAL
 from .errors import InputError
 from .neighbours import min_distance
 
@@ -44,9 +45,6 @@ _MAX_FRACTION = 1e3
 _MAX_LENGTH = 1e4
 #: pymatgen merges positions closer than this in each fractional coordinate.
 _SITE_TOLERANCE = 1e-4
-_CELL_TAGS = ("_cell_length_a", "_cell_length_b", "_cell_length_c",
-              "_cell_angle_alpha", "_cell_angle_beta", "_cell_angle_gamma")
-_FRACT_TAGS = ("_atom_site_fract_x", "_atom_site_fract_y", "_atom_site_fract_z")
 #: Tags that list symmetry operations, and tags that name the space group.
 _OPS_TAGS = ("_symmetry_equiv_pos_as_xyz", "_symmetry_equiv_pos_as_xyz_",
              "_space_group_symop_operation_xyz", "_space_group_symop_operation_xyz_")
@@ -241,12 +239,12 @@ def _atom_rows(data: dict, text: str, where: str):
     """(fractional coordinates (n, 3), labels (n,), cell metric tensor (3, 3) in
     Angstrom^2) of the atom rows, after checking the cell, the coordinates and
     the occupancies."""
-    for tag in _CELL_TAGS:
+    for tag in CIF_CELL_TAGS:
         if not isinstance(data.get(tag), str):
             raise InputError(f"has no cell: {tag} is " + ("missing" if tag not in data else
                              "a loop, not one value"), file=where)
     try:
-        cell = _numbers([data[t] for t in _CELL_TAGS])
+        cell = _numbers([data[t] for t in CIF_CELL_TAGS])
     except ValueError as exc:
         raise InputError(f"has a cell parameter {str(exc)!r} that is not a number", file=where,
                          line=_line_of(text, re.escape(str(exc)))) from None
@@ -258,17 +256,17 @@ def _atom_rows(data: dict, text: str, where: str):
                          f"above 0 and at most {_MAX_LENGTH:g} Angstrom, angles between 0 and "
                          "180 degrees that span a volume)", file=where,
                          line=_line_of(text, "_cell_length_a"))
-    if any(t not in data for t in _FRACT_TAGS):
+    if any(t not in data for t in CIF_FRACTIONAL):
         raise InputError("has no fractional atom coordinates (_atom_site_fract_x/y/z)",
                          file=where)
     if "_atom_site_label" not in data:  # a required column, and pymatgen needs it
         raise InputError("has atom sites without the _atom_site_label column", file=where)
     labels = np.array(_column(data, "_atom_site_label"), dtype=str)
-    if labels.size != len(_column(data, _FRACT_TAGS[0])):
+    if labels.size != len(_column(data, CIF_FRACTIONAL[0])):
         raise InputError("gives _atom_site_label and _atom_site_fract_x in different loops",
                          file=where)
     try:
-        frac = np.stack([_numbers(_column(data, t)) for t in _FRACT_TAGS], axis=1)
+        frac = np.stack([_numbers(_column(data, t)) for t in CIF_FRACTIONAL], axis=1)
         occupancy = (_numbers(_column(data, "_atom_site_occupancy"), 1.0)
                      if "_atom_site_occupancy" in data else np.ones(labels.size))
     except ValueError as exc:

@@ -1,0 +1,369 @@
+"""CIF text: loops and fields parsed with regular expressions and numpy, the
+checks that refuse damaged CIF text before ASE's or pymatgen's reader sees it,
+and the numpy reader for plain P 1 atom tables.
+
+The scans run over the whole text in C (regular expressions, ``str.split``,
+numpy), not a Python loop per atom row, so a CIF of a million atoms is checked
+in seconds; Python work per row happens only on error paths, to name the line.
+Every refusal is an :class:`~cellbuild.errors.InputError` naming the file and,
+where it can be found, the line. :mod:`cellbuild.readers` calls these from its
+CIF reader.
+"""
+from __future__ import annotations
+
+import math
+import re
+import shlex
+from dataclasses import dataclass
+from pathlib import Path
+
+import numpy as np
+
+from .errors import InputError
+from .structure import Structure
+
+
+def check_cif_symbol_column(path: Path, loops: list[_CifLoop]) -> None:
+    """InputError when an atom-site symbol holds no capital letter: ASE's reader
+    looks for one and fails inside itself (AttributeError) when there is none."""
+    for loop in loops:
+        tag = next((t for t in ("_atom_site_type_symbol", "_atom_site_label")
+                    if t in loop.heads), None)
+        if tag is None:
+            continue
+        column, width = loop.heads.index(tag), len(loop.heads)
+        for k, row in enumerate(loop.rows()):
+            fields = _cif_fields(row)
+            if len(fields) != width:
+                return  # rows spread over several lines: left to the readers
+            value = fields[column]
+            if value not in (".", "?") and not re.search(r"[A-Z]", value):
+                raise InputError(f"`{tag}` value {value!r} names no element",
+                                 hint="use a symbol such as Cu, Fe or Si",
+                                 file=str(path), line=loop.body_line + k)
+
+
+def check_cif_loop_rows(path: Path, loop: _CifLoop) -> None:
+    """InputError when a loop's values do not fill whole rows of its columns
+    (loops with multi-line text fields are left to the readers)."""
+    if re.search(r"^;", loop.body, re.MULTILINE):
+        return
+    if any(q in loop.body for q in "'\"#"):
+        tokens = sum(len(_cif_fields(row)) for row in loop.rows())
+    else:
+        tokens = len(loop.body.split())
+    if tokens % len(loop.heads):
+        width = len(loop.heads)
+        # error path only: name the first row whose field count is off
+        for offset, row in enumerate(loop.body.splitlines()):
+            if row.strip() and not row.lstrip().startswith("#") and (
+                    len(_cif_fields(row)) != width):
+                raise InputError(f"has an atom row with {len(_cif_fields(row))} fields "
+                                 f"where the table has {width} columns", file=str(path),
+                                 line=loop.body_line + offset)
+        body = loop.body.rstrip()
+        raise InputError(f"has a loop of {len(loop.heads)} columns whose {tokens} values do "
+                         "not fill whole rows; the file looks truncated or damaged",
+                         file=str(path), line=loop.body_line + body.count("\n"))
+
+
+_CIF_COORDINATES = ("_atom_site_fract_x", "_atom_site_fract_y", "_atom_site_fract_z",
+                    "_atom_site_cartn_x", "_atom_site_cartn_y", "_atom_site_cartn_z")
+
+
+def check_cif_numbers(path: Path, text: str, loops: list[_CifLoop]) -> None:
+    """InputError naming the line of a cell parameter or atom coordinate that is
+    not a number (uncertainties such as 0.25(1) allowed): ASE's reader keeps
+    such a value as text and fails on it later with a TypeError."""
+    for match in _SINGLE_VALUE.finditer(text):
+        if match.group(1).lower() in CIF_CELL_TAGS and not _cif_number(match.group(2)):
+            raise InputError(f"has {match.group(1)} = {match.group(2)!r}, which is not a number",
+                             file=str(path), line=text.count("\n", 0, match.start()) + 1)
+    table = _atom_site_loop(loops)
+    if table is None:
+        return
+    columns = [k for k, h in enumerate(table.heads) if h in _CIF_COORDINATES]
+    if not columns:
+        return
+    width = len(table.heads)
+    quoted = any(q in table.body for q in "'\"#")
+    fields = ([f for row in table.rows() for f in _cif_fields(row)] if quoted
+              else table.body.split())
+    values = np.array(fields[:len(fields) - len(fields) % width], dtype=str).reshape(-1, width)
+    coordinates = np.char.partition(np.char.strip(values[:, columns], "'\""), "(")[:, :, 0]
+    try:
+        coordinates.astype(np.float64)
+        return
+    except ValueError:  # error path only: find the row
+        bad = next(k for k, row in enumerate(coordinates.tolist())
+                   if not all(_cif_number(v) for v in row))
+    body_rows = [k for k, ln in enumerate(table.body.splitlines())
+                 if ln.strip() and not ln.lstrip().startswith("#")]
+    raise InputError("has an atom coordinate that is not a number",
+                     file=str(path), line=table.body_line + body_rows[min(bad, len(body_rows) - 1)])
+
+
+def _cif_number(value: str) -> bool:
+    """True for a CIF number, with or without an uncertainty in brackets."""
+    try:
+        float(value.strip("'\"").split("(")[0])
+    except ValueError:
+        return False
+    return True
+
+
+def cif_partial_occupancy(loops: list[_CifLoop]) -> list[dict]:
+    """Atom-site rows whose ``_atom_site_occupancy`` is below 1 (by more than
+    0.001), as {"label", "symbol", "occupancy", "line"}; unknown values ('?',
+    '.') count as 1."""
+    table = _atom_site_loop(loops)
+    if table is None or "_atom_site_occupancy" not in table.heads:
+        return []
+    heads = list(table.heads)
+    width, column = len(heads), heads.index("_atom_site_occupancy")
+    if any(q in table.body for q in "'\"#"):
+        fields = [f for row in table.rows() for f in _cif_fields(row)]
+    else:
+        fields = table.body.split()
+    if len(fields) % width:
+        return []  # a damaged table: the completeness check names it
+    values = np.char.partition(np.array(fields[column::width]), "(")[:, 0]
+    values[np.isin(values, ["?", "."])] = "1"
+    try:
+        occupancy = values.astype(np.float64)
+    except ValueError:
+        return []  # the general readers explain a non-number
+    rows = np.flatnonzero(occupancy < 1.0 - 1e-3)
+    if rows.size == 0:
+        return []
+    label_column = heads.index("_atom_site_label") if "_atom_site_label" in heads else 0
+    symbol_column = (heads.index("_atom_site_type_symbol") if "_atom_site_type_symbol" in heads
+                     else label_column)
+    body_rows = [k for k, ln in enumerate(table.body.splitlines())
+                 if ln.strip() and not ln.lstrip().startswith("#")]
+    return [{"label": fields[k * width + label_column],
+             "symbol": fields[k * width + symbol_column],
+             "occupancy": float(occupancy[k]),
+             "line": table.body_line + body_rows[k] if k < len(body_rows) else None}
+            for k in rows.tolist()]
+
+
+@dataclass(frozen=True)
+class _CifLoop:
+    """One ``loop_`` of a CIF: its lower-cased column tags and the text of its rows."""
+
+    heads: tuple[str, ...]
+    body: str
+    body_line: int  # 1-based line where ``body`` starts
+
+    def rows(self) -> list[str]:
+        """Row lines, blank and comment lines left out (error paths and small loops)."""
+        return [ln for ln in self.body.splitlines()
+                if ln.strip() and not ln.lstrip().startswith("#")]
+
+
+_LOOP_START = re.compile(r"^[ \t]*loop_[ \t]*$", re.MULTILINE)
+_LOOP_HEAD = re.compile(r"\n[ \t]*(_\S+)[ \t]*(?=\n|$)")
+_LOOP_END = re.compile(r"^[ \t]*(?:_|loop_|data_)", re.MULTILINE)
+_SINGLE_VALUE = re.compile(r"^[ \t]*(_\S+)[ \t]+(\S[^\n]*?)[ \t]*$", re.MULTILINE)
+
+
+def cif_loops(text: str) -> list[_CifLoop]:
+    """Every loop of the text, found by regular expressions: the scan runs in C,
+    not a Python loop over the (possibly million) atom rows."""
+    loops = []
+    for match in _LOOP_START.finditer(text):
+        pos, heads = match.end(), []
+        while (head := _LOOP_HEAD.match(text, pos)) is not None:
+            heads.append(head.group(1).lower())
+            pos = head.end()
+        end = _LOOP_END.search(text, pos)
+        stop = end.start() if end else len(text)
+        loops.append(_CifLoop(tuple(heads), text[pos:stop], text.count("\n", 0, pos) + 1))
+    return loops
+
+
+def _atom_site_loop(loops: list[_CifLoop]) -> _CifLoop | None:
+    """The one ``_atom_site_`` loop (anisotropic displacements aside), or None."""
+    # any column may name the loop: a damaged first tag must not hide the table
+    found = [lp for lp in loops if any(h.startswith("_atom_site_fract_")
+                                       or h.startswith("_atom_site_cartn_") for h in lp.heads)]
+    return found[0] if len(found) == 1 else None
+
+
+CIF_CELL_TAGS = ("_cell_length_a", "_cell_length_b", "_cell_length_c",
+                 "_cell_angle_alpha", "_cell_angle_beta", "_cell_angle_gamma")
+_CIF_IDENTITY = {"x,y,z", "+x,+y,+z"}
+CIF_FRACTIONAL = ("_atom_site_fract_x", "_atom_site_fract_y", "_atom_site_fract_z")
+
+
+def fast_p1_cif(text: str, loops: list[_CifLoop]) -> Structure | None:
+    """A single-block CIF in space group P 1 whose atom table holds plain numbers,
+    read with numpy; None for anything else (symmetry to expand, uncertainties,
+    quoted fields, several blocks), which goes to the general readers."""
+    if len(re.findall(r"^data_", text, re.MULTILINE)) != 1:
+        return None
+    tags = {m.group(1).lower(): m.group(2).strip("'\"") for m in _SINGLE_VALUE.finditer(text)}
+    if not _cif_is_p1(loops, tags) or any(t not in tags for t in CIF_CELL_TAGS):
+        return None
+    try:
+        cellpar = [float(tags[t]) for t in CIF_CELL_TAGS]
+    except ValueError:
+        return None  # uncertainties such as 3.61(2): the general reader knows them
+    table = _atom_site_loop(loops)
+    if table is None:
+        return None
+    columns = list(table.heads)
+    symbol_tag = next((t for t in ("_atom_site_type_symbol", "_atom_site_label") if t in columns),
+                      None)
+    if symbol_tag is None or any(t not in columns for t in CIF_FRACTIONAL):
+        return None
+    if any(c in table.body for c in "'\"()?#"):
+        return None  # quoted fields, uncertainties, unknowns or comments
+    fields = table.body.split()
+    width = len(columns)
+    if not fields or len(fields) % width:
+        return None
+    try:  # every width-th field from each wanted column: no per-row Python work
+        frac = np.stack([np.array(fields[columns.index(t)::width], dtype=np.float64)
+                         for t in CIF_FRACTIONAL], axis=1)
+    except ValueError:
+        return None
+    symbols = _cif_symbols(np.array(fields[columns.index(symbol_tag)::width]))
+    if symbols is None:
+        return None
+    from ase import Atoms
+    from ase.geometry import cellpar_to_cell
+
+    cell = cellpar_to_cell(cellpar)  # ASE's orientation, as its CIF reader gives
+    atoms = Atoms(symbols=list(symbols), scaled_positions=frac, cell=cell, pbc=True)
+    return Structure.from_ase(atoms)
+
+
+#: Atom rows above which a CIF the table reader cannot take is refused: ASE's
+#: reader compares each new site with all earlier ones (minutes at 60,000).
+CIF_GENERAL_MAX_ROWS = 20_000
+
+
+def refuse_large_cif_table(path: Path, loops: list[_CifLoop]) -> None:
+    """InputError for a big atom table the P 1 table reader could not take,
+    naming the first row whose field count is off when there is one."""
+    table = _atom_site_loop(loops)
+    if table is None or table.body.count("\n") <= CIF_GENERAL_MAX_ROWS:
+        return
+    width = len(table.heads)
+    # error path only: find the damaged row to name it
+    for offset, row in enumerate(table.body.splitlines()):
+        if row.strip() and not row.lstrip().startswith("#") and len(_cif_fields(row)) != width:
+            raise InputError(f"has an atom row with {len(_cif_fields(row))} fields "
+                             f"where the table has {width} columns",
+                             file=str(path), line=table.body_line + offset)
+    raise InputError(f"has {len(table.rows()):,} atom rows with symmetry operations, "
+                     "uncertainties or quoted fields, which only the general CIF reader takes, "
+                     "and it would take very long at this size", hint="write the structure in "
+                     "P 1 with plain numbers, or as LAMMPS data or extended XYZ", file=str(path))
+
+
+def _cif_fields(row: str) -> list[str]:
+    """The fields of one CIF row (quotes respected where they pair up)."""
+    try:
+        return shlex.split(row, comments=True)
+    except ValueError:  # an unpaired quote
+        return row.split()
+
+
+def _cif_is_p1(loops: list[_CifLoop], tags: dict[str, str]) -> bool:
+    """True when the file declares P 1 (name, number or only the identity operation)."""
+    names = [tags.get(t) for t in ("_symmetry_space_group_name_h-m",
+                                   "_space_group_name_h-m_alt")]
+    numbers = [tags.get(t) for t in ("_symmetry_int_tables_number", "_space_group_it_number")]
+    ops = _cif_symmetry_ops(loops)
+    declared = [n.replace(" ", "").upper() for n in names if n] + [n for n in numbers if n]
+    if ops is not None and not set(ops) <= _CIF_IDENTITY:
+        return False
+    return bool(declared or ops) and all(d in ("P1", "1") for d in declared)
+
+
+def _cif_symmetry_ops(loops: list[_CifLoop]) -> list[str] | None:
+    """The operations of the symmetry-operation loop, spaces removed, or None."""
+    for loop in loops:
+        column = next((c for c, h in enumerate(loop.heads)
+                       if h.endswith(("equiv_pos_as_xyz", "symop_operation_xyz"))), None)
+        if column is None:
+            continue
+        ops = []
+        for row in loop.rows():
+            fields = _cif_fields(row)  # an operation is quoted: 'x, y, z'
+            if len(fields) != len(loop.heads):
+                return ["(unparsed)"]  # leave it to the general readers
+            ops.append(fields[column].replace(" ", "").lower())
+        return ops
+    return None
+
+
+def _cif_symbols(labels: np.ndarray) -> np.ndarray | None:
+    """Element symbols from type symbols or labels (Cu, Cu12, Fe2+ -> Cu, Cu, Fe)."""
+    from ase.data import atomic_numbers
+
+    unique, inverse = np.unique(labels, return_inverse=True)
+    symbols = []
+    for label in unique:
+        match = re.match(r"[A-Z][a-z]?", label)
+        if match is None or match.group() not in atomic_numbers:
+            return None
+        symbols.append(match.group())
+    return np.array(symbols)[inverse]
+
+
+def check_cif_complete(path: Path, structure: Structure, text: str,
+                       loops: list[_CifLoop]) -> None:
+    """Refuse a CIF whose atom table was cut short.
+
+    A CIF loop is a stream of tokens, so readers accept a table that simply
+    stops. Two signs of a cut: the last row of the atom-site loop has fewer
+    fields than the loop has columns, or the declared ``_chemical_formula_sum``
+    is not a whole multiple of the atoms read.
+    """
+    line = _cif_short_row(loops)
+    if line is not None:
+        raise InputError("ends in the middle of the atom table (the last row is incomplete); "
+                         "the file looks truncated", file=str(path), line=line)
+    declared = _cif_formula_sum(text)
+    if declared and not _whole_multiple(structure.composition(), declared):
+        got = " ".join(f"{k}{v}" for k, v in structure.composition().items())
+        want = " ".join(f"{k}{v:g}" for k, v in declared.items())
+        raise InputError(f"lists {got} but declares _chemical_formula_sum {want}; "
+                         "the file looks truncated", file=str(path))
+
+
+def _cif_short_row(loops: list[_CifLoop]) -> int | None:
+    """1-based line of an incomplete last row of the last loop, if it is an
+    ``_atom_site_`` loop whose fields do not fill its columns; else None."""
+    if not loops or not any(h.startswith("_atom_site_") for h in loops[-1].heads):
+        return None
+    table = loops[-1]
+    body = table.body.rstrip()
+    width = len(table.heads)
+    if not body or len(body.split()) % width == 0:
+        return None
+    last = body.rsplit("\n", 1)[-1]
+    if len(last.split()) >= width:
+        return None
+    return table.body_line + body.count("\n")
+
+
+def _cif_formula_sum(text: str) -> dict[str, float] | None:
+    match = re.search(r"^_chemical_formula_sum\s+['\"]?([^'\"\n]+)", text, re.MULTILINE)
+    if not match:
+        return None
+    pairs = re.findall(r"([A-Z][a-z]?)\s*([0-9.]*)", match.group(1))
+    return {el: float(n or 1) for el, n in pairs} or None
+
+
+def _whole_multiple(counts: dict[str, int], declared: dict[str, float]) -> bool:
+    """True if ``counts`` is k x ``declared`` for one positive integer k."""
+    if set(counts) != set(declared):
+        return False
+    ratios = {counts[el] / declared[el] for el in counts}
+    k = ratios.pop()
+    return not ratios and k >= 1 and math.isclose(k, round(k), abs_tol=1e-6)
