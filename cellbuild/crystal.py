@@ -19,6 +19,7 @@ from itertools import product
 import numpy as np
 
 from .lattices import LATTICES, Shells, shells
+from .prototypes import PROTOTYPES, FirstShell, basis as prototype_basis, first_shells
 
 
 @dataclass(frozen=True, eq=False)
@@ -38,10 +39,19 @@ class Crystal:
         site_kind: ``"lattice"`` or the interstitial kind of each grid site.
         space_group: (symbol, International Tables number) of the ideal crystal.
         shells: neighbour shells of the lattice sites, distances in Angstrom.
-        audit_cutoff: midway between the first two neighbour shells.
+            For a compound prototype: one shell, the closest distance of any
+            sublattice pair and the coordination of the first sublattice at it.
+        audit_cutoff: midway between the first two neighbour shells (for a
+            compound: the largest of :attr:`site_cutoff`).
         offsets: audit neighbour table: entries ``(s, (di, dj, dk), t)`` where
             grid site ``t`` of the cell displaced by ``(di, dj, dk)`` lies within
-            :attr:`audit_cutoff` of grid site ``s``.
+            the cutoff of grid site ``s`` (:attr:`site_cutoff` for basis sites,
+            :attr:`audit_cutoff` for interstitial sites).
+        first_shells: sublattice label -> its first shell (distances in Angstrom),
+            neighbours counted per sublattice.
+        site_cutoff: audit cutoff of each basis site (Angstrom): midway between
+            its sublattice's first shell and the next distance, so perovskite's
+            B sees its 6 X at 0.5 a and A its 12 X at 0.707 a.
     """
 
     prototype: str
@@ -57,6 +67,8 @@ class Crystal:
     shells: Shells
     audit_cutoff: float
     offsets: tuple[tuple[int, tuple[int, int, int], int], ...]
+    first_shells: dict[str, FirstShell]
+    site_cutoff: tuple[float, ...]
 
     @property
     def n_basis(self) -> int:
@@ -110,8 +122,10 @@ def _is_diagonal(m: np.ndarray) -> bool:
 
 
 def resolve_crystal(prototype: str, a: float, species: tuple[tuple[str, str], ...]) -> Crystal:
-    """The :class:`Crystal` of table entry ``prototype`` with lattice constant ``a``
-    (Angstrom) and ``species`` as (sublattice label, element) pairs.
+    """The :class:`Crystal` of table entry ``prototype`` (a lattice of
+    :mod:`cellbuild.lattices` or a compound of :mod:`cellbuild.prototypes`) with
+    lattice constant ``a`` (Angstrom) and ``species`` as (sublattice label,
+    element) pairs.
 
     Cached: a library of many structures of one crystal resolves it once per process.
     """
@@ -120,38 +134,69 @@ def resolve_crystal(prototype: str, a: float, species: tuple[tuple[str, str], ..
 
 @lru_cache(maxsize=256)
 def _resolve(prototype: str, a: float, species: tuple[tuple[str, str], ...]) -> Crystal:
+    if prototype in PROTOTYPES:
+        return _resolve_compound(prototype, a, species)
     lat = LATTICES[prototype]
-    on = dict(species)
     cell = np.array(lat.cell, dtype=np.float64) * a
     basis = lat.basis_array()
-    parts, kinds = [basis], ["lattice"] * lat.n_basis
-    for kind, sites in lat.interstitials.items():
-        parts.append(np.array(sites, dtype=np.float64))
-        kinds += [kind] * len(sites)
-    site_frac = np.concatenate(parts)
     geometry = shells(prototype)
     scaled = Shells(tuple(d * a for d in geometry.distances), geometry.counts)
     cutoff = geometry.audit_cutoff * a  # (d1 + d2) / 2 in units of a, then scaled
+    return _crystal(prototype, lat.title, a, cell, basis, lat.sublattices, dict(species),
+                    lat.interstitials, lat.space_group, scaled, cutoff,
+                    (cutoff,) * lat.n_basis)
+
+
+def _resolve_compound(prototype: str, a: float, species) -> Crystal:
+    proto = PROTOTYPES[prototype]
+    cell = np.array(proto.cell, dtype=np.float64) * a
+    basis, labels = prototype_basis(proto)
+    unit = first_shells(proto.cell, basis, labels)
+    # each sublattice's cutoff midway between its first shell and the next distance
+    site_cutoff = tuple(0.5 * (unit[lb].outer + unit[lb].next_distance) * a for lb in labels)
+    closest = min(unit.values(), key=lambda sh: sh.distance)  # first in table order on ties
+    scaled = Shells((closest.distance * a,), (closest.coordination,))
+    return _crystal(prototype, proto.title, a, cell, basis, labels, dict(species), {},
+                    proto.space_group, scaled, max(site_cutoff), site_cutoff)
+
+
+def _crystal(prototype, title, a, cell, basis, labels, on, interstitials, space_group,
+             scaled, cutoff, site_cutoff) -> Crystal:
+    missing = [lb for lb in dict.fromkeys(labels) if lb not in on]
+    if missing:
+        raise KeyError(f"{prototype}: no element for sublattice {missing[0]}")
+    parts, kinds = [basis], ["lattice"] * len(basis)
+    for kind, sites in interstitials.items():
+        parts.append(np.array(sites, dtype=np.float64))
+        kinds += [kind] * len(sites)
+    site_frac = np.concatenate(parts)
+    unit = first_shells(cell / a, basis, tuple(labels))
+    in_angstrom = {lb: FirstShell(sh.distance * a, sh.counts, sh.outer * a, sh.next_distance * a)
+                   for lb, sh in unit.items()}
+    cutoffs = np.full(len(site_frac), cutoff)
+    cutoffs[:len(basis)] = site_cutoff
     return Crystal(
-        prototype=prototype, title=lat.title, a=a, cell=cell, basis=basis,
-        sublattice=lat.sublattices, elements=tuple(on[label] for label in lat.sublattices),
-        site_frac=site_frac, site_kind=tuple(kinds), space_group=lat.space_group,
+        prototype=prototype, title=title, a=a, cell=cell, basis=basis,
+        sublattice=tuple(labels), elements=tuple(on[label] for label in labels),
+        site_frac=site_frac, site_kind=tuple(kinds), space_group=space_group,
         shells=scaled, audit_cutoff=cutoff,
-        offsets=_neighbour_offsets(cell, site_frac, cutoff),
+        offsets=_neighbour_offsets(cell, site_frac, cutoffs),
+        first_shells=in_angstrom, site_cutoff=tuple(float(c) for c in site_cutoff),
     )
 
 
-def _neighbour_offsets(cell: np.ndarray, frac: np.ndarray, cutoff: float):
-    """Grid-site pairs within ``cutoff`` (Angstrom), through the cell metric."""
+def _neighbour_offsets(cell: np.ndarray, frac: np.ndarray, cutoffs: np.ndarray):
+    """Grid-site pairs ``(s, cell offset, t)`` with ``t`` within ``cutoffs[s]``
+    (Angstrom) of ``s``, through the cell metric."""
     # cells far enough out: the cutoff over the smallest perpendicular width
     widths = abs(np.linalg.det(cell)) / np.linalg.norm(np.cross(cell[[1, 2, 0]],
                                                                 cell[[2, 0, 1]]), axis=1)
-    span = [math.ceil(cutoff / w) + 1 for w in widths]
+    span = [math.ceil(float(cutoffs.max()) / w) + 1 for w in widths]
     cells = np.array(list(product(*(range(-s, s + 1) for s in span))), dtype=np.float64)
     entries = []
     for s, origin in enumerate(frac):
         # (cells, sites) distances from site s to every site of the nearby cells
         d = np.linalg.norm((cells[:, None, :] + frac[None, :, :] - origin) @ cell, axis=2)
-        ci, t = np.nonzero((d < cutoff) & (d > 1e-9 * cutoff))
+        ci, t = np.nonzero((d < cutoffs[s]) & (d > 1e-9 * cutoffs[s]))
         entries += [(s, tuple(int(x) for x in cells[c]), int(u)) for c, u in zip(ci, t)]
     return tuple(entries)

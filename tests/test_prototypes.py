@@ -148,3 +148,56 @@ def test_density_against_handbook(name, species, a, handbook):
 def test_unknown_parameter_is_refused():
     with pytest.raises(KeyError, match="'v'"):
         PROTOTYPES["spinel"].sites(v=0.3)
+
+
+SPECIES = {
+    "rocksalt": (("A", "Mg"), ("B", "O")),
+    "perovskite": (("A", "Sr"), ("B", "Ti"), ("X", "O")),
+    "spinel": (("A", "Mg"), ("B", "Al"), ("X", "O")),
+    "c15": (("A", "Mg"), ("B", "Cu")),
+    "fluorite": (("A", "U"), ("X", "O")),
+}
+
+
+@pytest.mark.parametrize("name", sorted(SPECIES))
+def test_resolved_compound_counts_textbook_neighbours_per_site(name):
+    """The resolved crystal's per-site audit cutoffs, applied by ASE's neighbour
+    list to a replicated 2x2x2 supercell, count each atom's textbook first shell;
+    the audit's offset table holds the same counts."""
+    from collections import Counter
+
+    from ase import Atoms
+    from ase.neighborlist import neighbor_list
+
+    from cellbuild.build import replicate
+    from cellbuild.crystal import resolve_crystal
+
+    a = {"rocksalt": 4.212, "perovskite": 3.905, "spinel": 8.08, "c15": 7.05,
+         "fluorite": 5.47}[name]
+    crystal = resolve_crystal(name, a, SPECIES[name])
+    symbols = tuple(dict.fromkeys(e for _, e in SPECIES[name]))
+    structure = replicate(crystal, (2, 2, 2), symbols)
+    atoms = Atoms([symbols[c] for c in structure.species], positions=structure.positions,
+                  cell=structure.cell, pbc=True)
+    basis_site = structure.site % crystal.n_grid
+    cutoffs = np.array(crystal.site_cutoff)[basis_site]
+    i, j, d = neighbor_list("ijd", atoms, float(cutoffs.max()))
+    keep = d < cutoffs[i]
+    labels = np.array(crystal.sublattice)[basis_site]
+    expected = COORDINATION[name]
+    for label, counts in expected.items():
+        atoms_on = np.flatnonzero(labels == label)
+        for atom in atoms_on[:5]:
+            got = Counter(labels[j[keep & (i == atom)]].tolist())
+            assert dict(got) == counts, (name, label, atom)
+    per_site = Counter(s for s, _, _ in crystal.offsets)
+    for s, label in enumerate(crystal.sublattice):
+        assert per_site[s] == sum(expected[label].values())
+    assert crystal.nearest == pytest.approx(min(sh.distance for sh in crystal.first_shells.values()))
+
+
+def test_a_compound_needs_an_element_on_every_sublattice():
+    from cellbuild.crystal import resolve_crystal
+
+    with pytest.raises(KeyError, match="sublattice B"):
+        resolve_crystal("rocksalt", 4.2, (("A", "Mg"),))
