@@ -36,6 +36,7 @@ outputs: [lammps-data, cif, xyz, poscar]
 #   min_separation: 5.0         # Angstrom between any two defects
 # checks:
 #   min_distance: 1.0           # Angstrom; default: half the nearest-neighbour distance
+#   physical_spacing: true      # false: build a spacing no solid has (a unit slip), on purpose
 """
 
 
