@@ -75,6 +75,26 @@ def expected_coordination(structure: Structure, crystal: Crystal,
     return expected.reshape(-1)[structure.site].astype(np.int32)
 
 
+def counts_within(structure: Structure, crystal: Crystal, *, workers: int = 2,
+                  sites=None) -> np.ndarray:
+    """Neighbours of each atom closer than its grid site's audit cutoff
+    (:attr:`Crystal.grid_cutoff`, Angstrom), from coordinates; (N,) int32.
+
+    One neighbour count per distinct cutoff (one for an element, at most one per
+    sublattice for a compound), each atom taking the count made with its cutoff.
+    """
+    values = np.unique(crystal.grid_cutoff)
+    counted = neighbours.coordination_counts(structure.cell, structure.positions,
+                                             float(values[-1]), workers=workers, sites=sites)
+    if len(values) > 1:
+        which = np.searchsorted(values, crystal.grid_cutoff)[structure.site % crystal.n_grid]
+        for k, value in enumerate(values[:-1]):
+            counts = neighbours.coordination_counts(structure.cell, structure.positions,
+                                                    float(value), workers=workers, sites=sites)
+            counted[which == k] = counts[which == k]
+    return counted
+
+
 # ----------------------------------------------------------------------------- the audit
 
 
@@ -105,15 +125,16 @@ def audit(plan: Plan, structure: Structure, placements: list[Placement],
                             f"{density:.6f} g/cm^3 from atoms and volume; asked {recipe.crystal.density}"))
 
     sites = neighbours.locate_grid(structure.cell, structure.positions)  # shared by two checks
-    counted = neighbours.coordination_counts(structure.cell, structure.positions, cutoff,
-                                             workers=workers, sites=sites)
+    counted = counts_within(structure, crystal, workers=workers, sites=sites)
     expected = expected_coordination(structure, crystal, plan.repeat)
     mismatched = int(np.count_nonzero(counted != expected))
     values["coordination"] = _coordination_values(structure, counted, cutoff, mismatched)
+    within = (f"{cutoff:.4f} Angstrom" if len(set(crystal.site_cutoff)) == 1
+              else "each sublattice's first-shell cutoff")
     checks.append(Check(
         "coordination", mismatched == 0,
         f"{mismatched} of {structure.n_atoms} atoms have a neighbour count (within "
-        f"{cutoff:.4f} Angstrom, from coordinates) that differs from the lattice topology"))
+        f"{within}, from coordinates) that differs from the lattice topology"))
 
     checks.append(_distance_check(recipe, structure, crystal.nearest, values, workers, sites))
     vacant = [site_positions(crystal, plan.repeat, p.site_ids)
@@ -139,8 +160,7 @@ def _ideal_crystal(crystal: Crystal) -> dict:
     """
     cell = replicate(crystal, (1, 1, 1), symbols=tuple(dict.fromkeys(crystal.elements)))
     d_nn, _, _ = neighbours.min_distance(cell.cell, cell.positions, workers=1)
-    counts = neighbours.coordination_counts(cell.cell, cell.positions, crystal.audit_cutoff,
-                                            workers=1)
+    counts = counts_within(cell, crystal, workers=1)
     packing = cell.n_atoms * (4.0 / 3.0) * math.pi * (d_nn / 2.0) ** 3 / cell.volume
     symbol, number = spacegroup(cell)
     return {

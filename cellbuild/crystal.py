@@ -83,6 +83,14 @@ class Crystal:
         return tuple(dict.fromkeys(k for k in self.site_kind if k != "lattice"))
 
     @property
+    def grid_cutoff(self) -> np.ndarray:
+        """Audit cutoff (Angstrom) of every grid site: :attr:`site_cutoff` on the
+        basis, :attr:`audit_cutoff` on interstitial sites; (n_grid,) float64."""
+        out = np.full(self.n_grid, self.audit_cutoff)
+        out[:self.n_basis] = self.site_cutoff
+        return out
+
+    @property
     def nearest(self) -> float:
         """Nearest-neighbour distance of the ideal crystal, Angstrom."""
         return self.shells.nearest
@@ -173,7 +181,7 @@ def _crystal(prototype, title, a, cell, basis, labels, on, interstitials, space_
     unit = first_shells(cell / a, basis, tuple(labels))
     in_angstrom = {lb: FirstShell(sh.distance * a, sh.counts, sh.outer * a, sh.next_distance * a)
                    for lb, sh in unit.items()}
-    cutoffs = np.full(len(site_frac), cutoff)
+    cutoffs = np.full(len(site_frac), cutoff)  # as Crystal.grid_cutoff
     cutoffs[:len(basis)] = site_cutoff
     return Crystal(
         prototype=prototype, title=title, a=a, cell=cell, basis=basis,

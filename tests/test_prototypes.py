@@ -201,3 +201,40 @@ def test_a_compound_needs_an_element_on_every_sublattice():
 
     with pytest.raises(KeyError, match="sublattice B"):
         resolve_crystal("rocksalt", 4.2, (("A", "Mg"),))
+
+
+@pytest.mark.parametrize("name, removed, neighbour_counts", [
+    # an anion vacancy in rock salt leaves its 6 cation neighbours 5 each; in
+    # perovskite an X vacancy leaves its 2 B neighbours 5 X and its 4 A
+    # neighbours 11 X (textbook geometry: the removed X sits at a/2 from 2 B and
+    # at a/sqrt2 from 4 A)
+    ("rocksalt", "B", {5: 6}),
+    ("perovskite", "X", {5: 2, 11: 4}),
+])
+def test_audit_counts_per_sublattice_agree_with_topology_around_a_vacancy(
+        name, removed, neighbour_counts):
+    """The audit's two routes for a compound: neighbours counted from coordinates
+    with each site's own cutoff, and expected from the occupancy grid, agree atom
+    by atom; both see the vacancy's neighbours lose one."""
+    from collections import Counter
+
+    from cellbuild.audit import counts_within, expected_coordination
+    from cellbuild.build import replicate
+    from cellbuild.crystal import resolve_crystal
+    from cellbuild.structure import Structure
+
+    a = {"rocksalt": 4.212, "perovskite": 3.905}[name]
+    crystal = resolve_crystal(name, a, SPECIES[name])
+    symbols = tuple(dict.fromkeys(e for _, e in SPECIES[name]))
+    perfect = replicate(crystal, (3, 3, 3), symbols)
+    labels = np.array(crystal.sublattice)[perfect.site % crystal.n_grid]
+    gone = np.flatnonzero(labels == removed)[7]
+    keep = np.arange(perfect.n_atoms) != gone
+    damaged = Structure(perfect.cell, perfect.positions[keep], perfect.species[keep],
+                        symbols, perfect.site[keep])
+    counted = counts_within(damaged, crystal, workers=1)
+    expected = expected_coordination(damaged, crystal, (3, 3, 3))
+    assert np.array_equal(counted, expected)
+    ideal = np.array([sum(COORDINATION[name][lb].values()) for lb in labels[keep]])
+    lowered = Counter(counted[counted != ideal].tolist())
+    assert dict(lowered) == neighbour_counts
