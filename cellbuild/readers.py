@@ -9,15 +9,14 @@ Python line at a time (measured on 1,000,188 atoms: ASE 6.1 s for a 64 MB LAMMPS
 file, 6.2 s for a 56 MB XYZ file; ``numpy.loadtxt`` 1.8 s and 1.3 s); the tests
 hold the fast path against ASE on the same files.
 The CIF text parsing, the checks before ASE or pymatgen reads a CIF and the
-P 1 table reader live in :mod:`cellbuild.cif_text`.
+P 1 table reader live in :mod:`cellbuild.cif_text`; the LAMMPS data header parser,
+the element-from-mass lookup and the numpy row reader in :mod:`cellbuild.read_lammps`.
 
 Every failure becomes an :class:`~cellbuild.errors.InputError` naming the file
 and, where it can be found, the line; a reader's own exception never escapes.
 """
 from __future__ import annotations
 
-import io
-import math
 import re
 import warnings
 from dataclasses import dataclass, field
@@ -30,7 +29,13 @@ from .cif_text import (check_cif_complete, check_cif_loop_rows, check_cif_number
                        refuse_large_cif_table)
 from .errors import InputError
 from .read_checks import check_claimed_counts, check_poscar, check_values
+from .read_lammps import (element_of_mass, fast_lammps, lammps_header, line_starts, load_rows,
+                          type_symbols)
 from .structure import Structure
+
+# element_of_mass lives in read_lammps and stays importable from here.
+__all__ = ["FAST_READ_MIN_BYTES", "FORMAT_TITLES", "ReadResult", "detect_format",
+           "element_of_mass", "read_file", "read_structure"]
 
 #: Formats and how a user would recognise them in messages.
 FORMAT_TITLES = {
@@ -42,17 +47,8 @@ FORMAT_TITLES = {
 #: Files at least this large (bytes) of a format with a fast path skip ASE's
 #: line-by-line parser (about 30,000 atoms; below it ASE takes < 0.2 s).
 FAST_READ_MIN_BYTES = 2_000_000
-#: Largest difference (u) between a LAMMPS mass and a standard atomic weight
-#: for the mass to name the element. Written masses carry 3-6 digits; the
-#: closest distinct standard weights that are not already ambiguous differ by
-#: more than 0.1 u, and pairs closer than this (Bi/Po, Bk/Cm, ...) are refused.
-MASS_TOLERANCE = 0.05
 #: Bytes looked at to sniff the format (and to refuse binary files).
 _SNIFF_BYTES = 8192
-#: LAMMPS atom styles read, with the columns of a row: id, type, [q,] x, y, z.
-_LAMMPS_STYLES = {"atomic": 5, "charge": 6}
-#: Section names of a LAMMPS data file (the ones that can hold atoms' lines).
-_LAMMPS_SECTIONS = ("Atoms", "Velocities", "Masses", "Atom Type Labels")
 #: Exceptions the libraries' readers raise on malformed text. Anything else is
 #: a bug and is left to propagate.
 #: (TypeError, AttributeError and AssertionError are bugs, ours or a
@@ -322,10 +318,10 @@ def _read_vasp(path: Path, types, fast) -> ReadResult:
 
 
 def _read_lammps(path: Path, types, fast) -> ReadResult:
-    header = _lammps_header(path)
+    header = lammps_header(path)
     # the numpy reader validates every atom row, so that ASE is not handed a
     # malformed one (it raises RuntimeError or TypeError on those)
-    structure = _fast_lammps(path, header, types)
+    structure = fast_lammps(path, header, types)
     if structure is None and not header.general_box:
         raise _unreadable(path, "lammps-data", ValueError("an atom row is not numbers"))
     if fast and structure is not None:
@@ -336,7 +332,7 @@ def _read_lammps(path: Path, types, fast) -> ReadResult:
     atoms = _ase_read(path, "lammps-data", atom_style=header.style, units="metal",
                       Z_of_type=z_of_type)
     used = np.unique(atoms.arrays["type"])
-    symbols = _type_symbols(path, header, types, used)
+    symbols = type_symbols(path, header, types, used)
     from ase.data import atomic_numbers
 
     atoms.numbers = np.array([atomic_numbers[symbols[t]] for t in atoms.arrays["type"]])
@@ -346,230 +342,7 @@ def _read_lammps(path: Path, types, fast) -> ReadResult:
 _READERS = {"cif": _read_cif, "xyz": _read_xyz, "lammps-data": _read_lammps, "vasp": _read_vasp}
 
 
-# ----------------------------------------------------------------------------- LAMMPS header
-
-
-@dataclass
-class _LammpsHeader:
-    """What a LAMMPS data file says before (and around) its Atoms section."""
-
-    n_atoms: int = 0
-    n_types: int = 0
-    bounds: dict = field(default_factory=dict)  # xlo, xhi, ..., xy, xz, yz
-    masses: dict = field(default_factory=dict)  # type -> (mass, line)
-    style: str = "atomic"
-    atoms_line: int = 0  # 1-based line of the "Atoms" keyword
-    general_box: bool = False
-
-
-def _lammps_header(path: Path) -> _LammpsHeader:
-    """Counts, box, masses and atom style; the atom rows are skipped, not parsed."""
-    from itertools import islice
-
-    head = _LammpsHeader()
-    style_comment, first_row, section = None, None, None
-    with open(path, encoding="utf-8", errors="replace") as handle:
-        lines = enumerate(handle, start=1)
-        next(lines, None)  # the first line is a title
-        for number, raw in lines:
-            text, _, comment = raw.partition("#")
-            text = text.strip()
-            if not text:
-                continue
-            if section in ("after Atoms", "after Velocities") and not re.fullmatch(
-                    r"[A-Z][A-Za-z ]+", text):
-                what = section.split()[1]
-                raise InputError(f"has more {what} rows than the {head.n_atoms:,} atoms its "
-                                 f"header declares (LAMMPS refuses such a file)",
-                                 file=str(path), line=number)
-            if text in _LAMMPS_SECTIONS or re.fullmatch(r"[A-Z][A-Za-z ]+", text):
-                section = text
-                if section == "Atoms":
-                    head.atoms_line = number
-                    style_comment = comment.strip() or None
-                continue
-            if section is None:
-                _header_line(head, text, path, number)
-            elif section == "Masses":
-                _mass_line(head, path, text, number)
-            elif section in ("Atoms", "Velocities"):
-                # one row per atom: keep the first, skip the rest without parsing
-                if section == "Atoms" and first_row is None:
-                    first_row = text.split()
-                for _ in islice(lines, max(head.n_atoms - 1, 0)):
-                    pass
-                section = "after " + section
-    if head.atoms_line == 0 or head.n_atoms == 0:
-        raise InputError("has no Atoms section (or no 'N atoms' line)", file=str(path))
-    head.style = _lammps_style(path, head, style_comment, first_row)
-    return head
-
-
-def _mass_line(head: _LammpsHeader, path: Path, text: str, number: int) -> None:
-    parts = text.split()
-    try:
-        head.masses[int(parts[0])] = (float(parts[1]), number)
-    except (ValueError, IndexError):
-        raise InputError(f"has a Masses line that is not 'type mass': {text!r}",
-                         file=str(path), line=number) from None
-
-
-def _header_line(head: _LammpsHeader, text: str, path: Path, number: int) -> None:
-    parts = text.split()
-    if len(parts) == 4 and parts[2][1:] == "lo" and parts[3][1:] == "hi":
-        try:
-            low, high = float(parts[0]), float(parts[1])
-        except ValueError:
-            raise InputError(f"has box bounds that are not numbers: {text!r}",
-                             file=str(path), line=number) from None
-        if not (math.isfinite(low) and math.isfinite(high) and low < high):
-            raise InputError(f"has box bounds {parts[2]} = {parts[0]} and {parts[3]} = "
-                             f"{parts[1]}; LAMMPS needs finite bounds with lo < hi",
-                             file=str(path), line=number)
-    if parts[-2:] == ["atom", "types"] and len(parts) == 3 and parts[0].isdigit() and (
-            len(parts[0]) > 6):
-        raise InputError(f"declares {parts[0]} atom types, more than cellbuild reads (999,999)",
-                         file=str(path), line=number)
-    try:
-        if parts[-1] == "atoms" and len(parts) == 2:
-            head.n_atoms = int(parts[0])
-        elif parts[-2:] == ["atom", "types"]:
-            head.n_types = int(parts[0])
-        elif len(parts) == 4 and parts[2][1:] == "lo" and parts[3][1:] == "hi":
-            head.bounds[parts[2]] = float(parts[0])
-            head.bounds[parts[3]] = float(parts[1])
-        elif parts[-3:] == ["xy", "xz", "yz"]:
-            head.bounds.update(xy=float(parts[0]), xz=float(parts[1]), yz=float(parts[2]))
-        elif parts[-1] in ("avec", "bvec", "cvec", "origin"):
-            head.general_box = True
-    except (ValueError, IndexError):
-        pass  # other header keywords (bonds, ellipsoids, ...) do not concern us
-
-
-def _lammps_style(path, head, comment, first_row) -> str:
-    """The atom style: from the ``Atoms # style`` comment, else the column count."""
-    if comment:
-        style = comment.split()[0]
-        if style not in _LAMMPS_STYLES:
-            raise InputError(f"has atom style {style!r}, which cellbuild does not read",
-                             file=str(path), line=head.atoms_line,
-                             hint="use atom style atomic or charge")
-        return style
-    columns = len(first_row or [])
-    for style, n in _LAMMPS_STYLES.items():
-        if columns in (n, n + 3):  # with or without image flags
-            return style
-    raise InputError(f"has {columns} columns per atom, neither atomic (5 or 8) nor charge "
-                     "(6 or 9)", file=str(path), line=head.atoms_line + 2)
-
-
-def _type_symbols(path: Path, head: _LammpsHeader, types, used) -> dict[int, str]:
-    """Element of each used LAMMPS type: ``--types`` first, else the Masses section."""
-    symbols = {}
-    for t in (int(x) for x in used):
-        if types:
-            if t > len(types):
-                raise InputError(f"names {len(types)} element(s) but the file uses type {t}",
-                                 key="--types", value=",".join(types), file=str(path))
-            symbols[t] = types[t - 1]
-            continue
-        mass, line = head.masses.get(t, (None, None))
-        symbol = element_of_mass(mass) if mass is not None else None
-        if symbol is None:
-            what = f"mass {mass:g}" if mass is not None else "no mass in the Masses section"
-            why = ("matches no single standard atomic weight within "
-                   f"{MASS_TOLERANCE} u" if mass is not None else "")
-            raise InputError(f"atom type {t} has {what}{' that ' + why if why else ''}",
-                             file=str(path), line=line,
-                             hint="pass --types with one element per type, e.g. --types Cu,Ni")
-        symbols[t] = symbol
-    return symbols
-
-
-def element_of_mass(mass: float) -> str | None:
-    """The element whose standard atomic weight (ASE's IUPAC table) is within
-    :data:`MASS_TOLERANCE` of ``mass`` (u), if exactly one is; else None."""
-    from ase.data import atomic_masses, chemical_symbols
-
-    close = np.flatnonzero(np.abs(np.asarray(atomic_masses)[1:] - mass) <= MASS_TOLERANCE) + 1
-    return chemical_symbols[int(close[0])] if len(close) == 1 else None
-
-
 # ----------------------------------------------------------------------------- fast paths
-
-
-def _line_starts(data: bytes) -> np.ndarray:
-    """Byte offset of the start of every line (and one past the end)."""
-    newlines = np.flatnonzero(np.frombuffer(data, dtype=np.uint8) == 10)
-    return np.concatenate([[0], newlines + 1, [len(data) + 1]])
-
-
-def _load_rows(path: Path, data: bytes, starts: np.ndarray, first: int, n: int,
-               usecols, dtype) -> np.ndarray:
-    """``n`` rows from 0-based line ``first`` parsed by ``numpy.loadtxt``.
-
-    Raises InputError (with the line) when the file ends early or its last row
-    is cut short; ValueError when a row does not parse otherwise (the caller
-    then lets ASE read the file and explain).
-    """
-    n_lines = len(starts) - 1
-    last = first + n - 1
-    if last >= n_lines or not data[starts[last]:].strip():
-        raise InputError(f"ends before its {n:,} atom rows are complete; the file looks "
-                         "truncated", file=str(path), line=data.count(b"\n") + 1)
-    width = len(data[starts[first]:starts[first + 1]].split(b"#")[0].split())
-    if len(data[starts[last]:starts[last + 1]].split(b"#")[0].split()) < width:
-        raise InputError("ends in the middle of an atom row; the file looks truncated",
-                         file=str(path), line=last + 1)
-    block = data[starts[first]:starts[first + n] - 1]
-    rows = np.loadtxt(io.BytesIO(block), usecols=usecols, dtype=dtype, comments="#",
-                      ndmin=1 if isinstance(usecols, int) else 2)
-    if len(rows) != n:
-        raise ValueError(f"{len(rows)} rows parsed, {n} expected")  # blank lines inside
-    return rows
-
-
-def _fast_lammps(path: Path, head: _LammpsHeader, types) -> Structure | None:
-    """LAMMPS atom rows with numpy; None if the file needs ASE's general reader."""
-    if head.general_box:
-        return None
-    data = path.read_bytes()
-    starts = _line_starts(data)
-    first = head.atoms_line  # 0-based index of the line after "Atoms" (blank)
-    while first < len(starts) - 2 and not data[starts[first]:starts[first + 1]].strip():
-        first += 1
-    n_cols = _LAMMPS_STYLES[head.style]
-    xyz_cols = (n_cols - 3, n_cols - 2, n_cols - 1)
-    try:
-        width = len(data[starts[first]:starts[first + 1]].split(b"#")[0].split())
-        usecols = (0, 1) + xyz_cols + ((n_cols, n_cols + 1, n_cols + 2) if width == n_cols + 3 else ())
-        rows = _load_rows(path, data, starts, first, head.n_atoms, usecols, np.float64)
-    except ValueError:
-        return None
-    order = np.argsort(rows[:, 0], kind="stable")  # ASE orders atoms by id
-    rows = rows[order]
-    type_of = rows[:, 1].astype(np.int64)
-    cell = _lammps_cell(head.bounds)
-    positions = rows[:, 2:5].copy()
-    if rows.shape[1] == 8:  # image flags: unwrap as ASE does
-        positions += np.einsum("ij,jk->ik", rows[:, 5:8], cell)
-    used = np.unique(type_of)
-    if used[0] < 1:
-        raise InputError(f"has atom type {used[0]}; LAMMPS types start at 1", file=str(path))
-    symbols = _type_symbols(path, head, types, used)
-    unique = tuple(dict.fromkeys(symbols[int(t)] for t in used))
-    code_of_type = np.zeros(int(used.max()) + 1, dtype=np.int32)
-    for t in used:
-        code_of_type[t] = unique.index(symbols[int(t)])
-    return Structure(cell=cell, positions=positions, species=code_of_type[type_of],
-                     symbols=unique)
-
-
-def _lammps_cell(b: dict) -> np.ndarray:
-    """Cell rows from LAMMPS bounds and tilts (restricted triclinic box)."""
-    return np.array([[b.get("xhi", 0.5) - b.get("xlo", -0.5), 0.0, 0.0],
-                     [b.get("xy", 0.0), b.get("yhi", 0.5) - b.get("ylo", -0.5), 0.0],
-                     [b.get("xz", 0.0), b.get("yz", 0.0), b.get("zhi", 0.5) - b.get("zlo", -0.5)]])
 
 
 def _fast_xyz(path: Path) -> Structure | None:
@@ -577,7 +350,7 @@ def _fast_xyz(path: Path) -> Structure | None:
     from ase.io.extxyz import key_val_str_to_dict
 
     data = path.read_bytes()
-    starts = _line_starts(data)
+    starts = line_starts(data)
     try:
         n = int(data[:starts[1]].strip())
         info = key_val_str_to_dict(data[starts[1]:starts[2] - 1].decode("utf-8"))
@@ -588,8 +361,8 @@ def _fast_xyz(path: Path) -> Structure | None:
         return None
     species_col, pos_cols = columns
     try:
-        names = _load_rows(path, data, starts, 2, n, species_col, "U3")
-        positions = _load_rows(path, data, starts, 2, n, pos_cols, np.float64)
+        names = load_rows(path, data, starts, 2, n, species_col, "U3")
+        positions = load_rows(path, data, starts, 2, n, pos_cols, np.float64)
     except ValueError:
         return None
     if data[starts[min(2 + n, len(starts) - 1)] - 1:].strip():
