@@ -129,6 +129,8 @@ def audit(plan: Plan, structure: Structure, placements: list[Placement],
     expected = expected_coordination(structure, crystal, plan.repeat)
     mismatched = int(np.count_nonzero(counted != expected))
     values["coordination"] = _coordination_values(structure, counted, cutoff, mismatched)
+    values["coordination"]["cutoff_by_sublattice"] = {
+        label: c for label, c in zip(crystal.sublattice, crystal.site_cutoff)}
     within = (f"{cutoff:.4f} Angstrom" if len(set(crystal.site_cutoff)) == 1
               else "each sublattice's first-shell cutoff")
     checks.append(Check(
@@ -257,7 +259,9 @@ def _atoms_per_cell_check(plan: Plan, structure: Structure, placements) -> Check
 
 
 def _composition_check(plan: Plan, composition: dict[str, int], placements) -> Check:
-    expected: dict[str, int] = {plan.recipe.crystal.element: plan.n_sites}
+    expected: dict[str, int] = {}
+    for element in plan.crystal.elements:  # one entry per basis site
+        expected[element] = expected.get(element, 0) + plan.n_cells
     for p in placements:
         if p.kind in ("vacancy", "substitution"):
             expected[p.on] -= p.count

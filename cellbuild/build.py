@@ -20,6 +20,7 @@ from .errors import InputError
 from .crystal import Crystal, resolve_crystal
 from .defect_plan import count_defects
 from .lattices import LATTICES, shells, touching_radius_factor
+from .prototypes import PROTOTYPES, basis as prototype_basis
 from .recipe import Recipe
 from .structure import Structure
 
@@ -87,18 +88,27 @@ class Plan:
 def lattice_constant(recipe: Recipe) -> tuple[float, str]:
     """The lattice constant in Angstrom and a phrase saying where it came from."""
     crystal = recipe.crystal
-    lat = LATTICES[crystal.lattice]
     if crystal.a is not None:
         return crystal.a, "given (crystal.a)"
     if crystal.density is not None:
-        mass = lat.n_basis * standard_atomic_weight(crystal.element)  # g/mol per cell
+        # g/mol per conventional cell; every table cell is cubic (volume a^3)
+        mass = sum(standard_atomic_weight(e) for e in _basis_elements(crystal))
         volume_cm3 = mass / (AVOGADRO * crystal.density)
+        weights = "weights" if len(crystal.elements()) > 1 else "weight"
         return (volume_cm3 / ANGSTROM3_TO_CM3) ** (1.0 / 3.0), (
-            f"from density {crystal.density} g/cm^3 and the standard atomic weight")
+            f"from density {crystal.density} g/cm^3 and the standard atomic {weights}")
     if crystal.radius is not None:
         return crystal.radius / touching_radius_factor(crystal.lattice), (
             f"from touching spheres of radius {crystal.radius} Angstrom")
     return _reference_constant(recipe), "reference value of ASE's data table"
+
+
+def _basis_elements(crystal) -> tuple[str, ...]:
+    """The element on each basis site of the recipe's lattice or prototype."""
+    if crystal.lattice in LATTICES:
+        return (crystal.element,) * LATTICES[crystal.lattice].n_basis
+    on = dict(crystal.species)
+    return tuple(on[label] for label in prototype_basis(PROTOTYPES[crystal.lattice])[1])
 
 
 def _reference_constant(recipe: Recipe) -> float:
@@ -177,7 +187,8 @@ def resolve(recipe: Recipe, *, strict: bool = False) -> Plan:
             f"({MIN_CONSTANT} to {MAX_CONSTANT:g})", key=_constant_key(recipe),
             value=_constant_value(recipe, a), hint="check the units (Angstrom, g/cm^3)",
             file=recipe.source)
-    warnings = list(_spacing_warnings(recipe, a))
+    crystal = resolve_crystal(recipe.crystal.lattice, a, recipe.crystal.species)
+    warnings = list(_spacing_warnings(recipe, crystal))
     if not 1.0 <= a <= 20.0:
         message = f"lattice constant {a:.4g} Angstrom is outside the plausible range 1 to 20"
         if strict:
@@ -186,7 +197,6 @@ def resolve(recipe: Recipe, *, strict: bool = False) -> Plan:
                              key=key, value=_constant_value(recipe, a),
                              hint="check the units (Angstrom, g/cm^3)", file=recipe.source)
         warnings.append(message)
-    crystal = resolve_crystal(recipe.crystal.lattice, a, (("A", recipe.crystal.element),))
     repeat = choose_repeat(recipe, crystal)
     n_sites = crystal.n_basis * math.prod(repeat)  # Python ints: absurd sizes must not overflow
     n_atoms = n_sites  # before defects; see defect_counts
@@ -211,20 +221,23 @@ def resolve(recipe: Recipe, *, strict: bool = False) -> Plan:
                 counts, tuple(warnings))
 
 
-def _spacing_warnings(recipe: Recipe, a: float) -> tuple[str, ...]:
+def _spacing_warnings(recipe: Recipe, crystal: Crystal) -> tuple[str, ...]:
     """Refuse a lattice constant whose nearest-neighbour distance no solid has
-    (a value in nm or pm, say); with ``checks.physical_spacing: false``, warn instead."""
+    (a value in nm or pm, say); with ``checks.physical_spacing: false``, warn instead.
+    Each sublattice's first shell is judged with the elements of the pair."""
     from .spacing import judge
 
-    element = recipe.crystal.element
-    verdict = judge(nearest_neighbour_distance(recipe.crystal.lattice, a), element, element)
-    if verdict.plausible:
+    on = dict(zip(crystal.sublattice, crystal.elements))
+    verdicts = [judge(shell.distance, on[label], on[other])
+                for label, shell in crystal.first_shells.items() for other in shell.counts]
+    verdict = next((x for x in verdicts if not x.plausible), None)
+    if verdict is None:
         return ()
     if not recipe.checks.physical_spacing:
         return (f"the lattice constant {verdict.describe()}; built anyway because "
                 "checks.physical_spacing is false",)
     raise InputError(verdict.describe(), key=_constant_key(recipe),
-                     value=_constant_value(recipe, a),
+                     value=_constant_value(recipe, crystal.a),
                      hint="give lengths in Angstrom, or set checks.physical_spacing: false "
                           "to build it on purpose", file=recipe.source)
 

@@ -148,12 +148,20 @@ def _progress(name: str):
     return note
 
 
+def _species_text(r: dict) -> str:
+    """``Cu`` for one species, ``A=Mg B=O`` for a compound's sublattices."""
+    species = r["species"]
+    if len(species) == 1:
+        return r["element"]
+    return " ".join(f"{label}={element}" for label, element in species.items())
+
+
 def _summary(result) -> None:
     r = result.report
     box = " x ".join(f"{x:.3f}" for x in r["cell_lengths"])
     passed = sum(c["passed"] for c in r["checks"])
     verdict = "all checks passed" if result.passed else "CHECKS FAILED"
-    typer.echo(f"{r['name']}: {r['n_atoms']:,} atoms, {r['lattice']} {r['element']} "
+    typer.echo(f"{r['name']}: {r['n_atoms']:,} atoms, {r['lattice']} {_species_text(r)} "
                f"a = {r['lattice_constant']:.5f} A, box {box} A; "
                f"{passed}/{len(r['checks'])} checks passed ({verdict})")
     if r.get("size_note"):
@@ -190,7 +198,7 @@ def plan(
 
 def _plan_text(p: dict) -> str:
     lines = [
-        f"{p['name']}: {p['lattice']} {p['element']}",
+        f"{p['name']}: {p['lattice']} {_species_text(p)}",
         f"  lattice constant  {p['lattice_constant']:.6f} A ({p['lattice_constant_source']})",
         f"  repeat            {' x '.join(map(str, p['repeat']))} conventional cells",
         f"  box               {' x '.join(f'{x:.4f}' for x in p['box'])} A",

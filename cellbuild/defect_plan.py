@@ -90,7 +90,7 @@ def count_defects(recipe: Recipe, crystal: Crystal,
             raise InputError(
                 f"`{req.on}` has no sites in the perfect crystal",
                 key=f"{req.key}.on", value=req.on,
-                hint=f"sites can be taken from {recipe.crystal.element}",
+                hint="sites can be taken from " + ", ".join(pools),
                 file=recipe.source)
         n = requested_count(req.amount, pools[req.on])
         left = pools[req.on] - used.get(req.on, 0)

@@ -17,6 +17,7 @@ def describe(plan: Plan) -> dict:
         "name": recipe.name,
         "lattice": recipe.crystal.lattice,
         "element": recipe.crystal.element,
+        "species": dict(recipe.crystal.species),
         "lattice_constant": plan.lattice_constant,
         "lattice_constant_source": plan.lattice_constant_source,
         "repeat": list(plan.repeat),

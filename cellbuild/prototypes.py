@@ -9,9 +9,9 @@ cell metric, so non-cubic cells measure right.
 
 Positions are the standard settings of the International Tables for
 Crystallography, Vol. A (spinel and C15 in origin choice 2, centre at -3m).
-The recipe layer does not read this table yet: it is the data step of
-compounds on sublattices, held against spglib and textbook coordination in
-``tests/test_prototypes.py``.
+Recipes name the cubic entries (:mod:`cellbuild.recipe_lattices`); hcp waits
+for a ``c`` key. The table is held against spglib, textbook coordination, ASE's
+``bulk`` and handbook densities in ``tests/test_prototypes.py``.
 """
 from __future__ import annotations
 
@@ -64,6 +64,8 @@ class Prototype:
         example: a real compound, sublattice label -> element.
         cell: conventional cell, rows in units of ``a``.
         parameters: internal parameters and their defaults (spinel ``u``).
+        example_a: room-temperature lattice constant of ``example`` (Angstrom,
+            from memory), for the starter recipe.
     """
 
     name: str
@@ -73,6 +75,7 @@ class Prototype:
     example: dict[str, str]
     cell: tuple[Site, Site, Site] = _CUBIC
     parameters: dict[str, float] = field(default_factory=dict)
+    example_a: float | None = None
 
     def sites(self, **params: float) -> dict[str, tuple[Site, ...]]:
         """Sublattice label -> sites, internal parameters filled in from defaults."""
@@ -94,44 +97,44 @@ IDEAL_C_OVER_A = math.sqrt(8.0 / 3.0)
 PROTOTYPES: dict[str, Prototype] = {p.name: p for p in (
     Prototype("rocksalt", "rock salt (B1)",
               {"A": _FCC, "B": _fcc_plus((0.5, 0.0, 0.0))},
-              ("Fm-3m", 225), {"A": "Mg", "B": "O"}),
+              ("Fm-3m", 225), {"A": "Mg", "B": "O"}, example_a=4.212),
     Prototype("cesium-chloride", "cesium chloride (B2)",
               {"A": ((0.0, 0.0, 0.0),), "B": ((0.5, 0.5, 0.5),)},
-              ("Pm-3m", 221), {"A": "Cs", "B": "Cl"}),
+              ("Pm-3m", 221), {"A": "Cs", "B": "Cl"}, example_a=4.12),
     Prototype("zincblende", "zinc blende (B3)",
               {"A": _FCC, "B": _fcc_plus((0.25, 0.25, 0.25))},
-              ("F-43m", 216), {"A": "Ga", "B": "As"}),
+              ("F-43m", 216), {"A": "Ga", "B": "As"}, example_a=5.653),
     Prototype("fluorite", "fluorite (C1)",
               {"A": _FCC, "X": _wrap(product((0.25, 0.75), repeat=3))},
-              ("Fm-3m", 225), {"A": "U", "X": "O"}),
+              ("Fm-3m", 225), {"A": "U", "X": "O"}, example_a=5.47),
     Prototype("perovskite", "cubic perovskite (E2_1)",
               {"A": ((0.0, 0.0, 0.0),), "B": ((0.5, 0.5, 0.5),),
                "X": ((0.5, 0.5, 0.0), (0.5, 0.0, 0.5), (0.0, 0.5, 0.5))},
-              ("Pm-3m", 221), {"A": "Sr", "B": "Ti", "X": "O"}),
+              ("Pm-3m", 221), {"A": "Sr", "B": "Ti", "X": "O"}, example_a=3.905),
     Prototype("l1_2", "L1_2 (Cu3Au type)",
               {"A": ((0.0, 0.0, 0.0),), "B": ((0.5, 0.5, 0.0), (0.5, 0.0, 0.5), (0.0, 0.5, 0.5))},
-              ("Pm-3m", 221), {"A": "Au", "B": "Cu"}),
+              ("Pm-3m", 221), {"A": "Au", "B": "Cu"}, example_a=3.75),
     # A at 2a, B at 6c (chains along the cube edges)
     Prototype("a15", "A15 (Cr3Si type)",
               {"A": ((0.0, 0.0, 0.0), (0.5, 0.5, 0.5)),
                "B": ((0.25, 0.0, 0.5), (0.75, 0.0, 0.5), (0.5, 0.25, 0.0),
                      (0.5, 0.75, 0.0), (0.0, 0.5, 0.25), (0.0, 0.5, 0.75))},
-              ("Pm-3n", 223), {"A": "Si", "B": "Cr"}),
+              ("Pm-3n", 223), {"A": "Si", "B": "Cr"}, example_a=4.56),
     # A at 8a, B at 16d, origin choice 2
     Prototype("c15", "C15 Laves phase (MgCu2 type)",
               {"A": _fcc_plus((0.125, 0.125, 0.125), (0.875, 0.875, 0.875)),
                "B": _fcc_plus((0.5, 0.5, 0.5), (0.25, 0.25, 0.5), (0.25, 0.5, 0.25),
                               (0.5, 0.25, 0.25))},
-              ("Fd-3m", 227), {"A": "Mg", "B": "Cu"}),
+              ("Fd-3m", 227), {"A": "Mg", "B": "Cu"}, example_a=7.05),
     # X2YZ: Y at 4a, Z at 4b, X at 8c
     Prototype("heusler", "full Heusler (L2_1, Cu2MnAl type)",
               {"X": _fcc_plus((0.25, 0.25, 0.25), (0.75, 0.75, 0.75)),
                "Y": _FCC, "Z": _fcc_plus((0.5, 0.5, 0.5))},
-              ("Fm-3m", 225), {"X": "Cu", "Y": "Mn", "Z": "Al"}),
+              ("Fm-3m", 225), {"X": "Cu", "Y": "Mn", "Z": "Al"}, example_a=5.95),
     # XYZ: Y at 4a, Z at 4b, X at 4c; 4d empty
     Prototype("half-heusler", "half Heusler (C1_b, MgAgAs type)",
               {"X": _fcc_plus((0.25, 0.25, 0.25)), "Y": _FCC, "Z": _fcc_plus((0.5, 0.5, 0.5))},
-              ("F-43m", 216), {"X": "Ni", "Y": "Ti", "Z": "Sn"}),
+              ("F-43m", 216), {"X": "Ni", "Y": "Ti", "Z": "Sn"}, example_a=5.93),
     # AB2X4: A at 8a (tetrahedral), B at 16d (octahedral), X at 32e; origin choice 2.
     # u = 0.2624 for MgAl2O4 (from memory of published refinements; u = 1/4 is
     # ideal cubic close packing of X in this origin choice).
@@ -140,10 +143,11 @@ PROTOTYPES: dict[str, Prototype] = {p.name: p for p in (
                "B": _fcc_plus((0.5, 0.5, 0.5), (0.25, 0.25, 0.5), (0.25, 0.5, 0.25),
                               (0.5, 0.25, 0.25)),
                "X": lambda u: _spinel_oxygen(u)},
-              ("Fd-3m", 227), {"A": "Mg", "B": "Al", "X": "O"}, parameters={"u": 0.2624}),
+              ("Fd-3m", 227), {"A": "Mg", "B": "Al", "X": "O"}, parameters={"u": 0.2624},
+              example_a=8.08),
     Prototype("hcp", "hexagonal close-packed (A3)",
               {"A": ((1.0 / 3.0, 2.0 / 3.0, 0.25), (2.0 / 3.0, 1.0 / 3.0, 0.75))},
-              ("P6_3/mmc", 194), {"A": "Ti"}, cell=_hcp_cell(IDEAL_C_OVER_A)),
+              ("P6_3/mmc", 194), {"A": "Ti"}, cell=_hcp_cell(IDEAL_C_OVER_A), example_a=2.95),
 )}
 
 

@@ -21,7 +21,10 @@ from typing import Any, Mapping
 from . import recipe_values as v
 from .errors import InputError
 from .lattices import LATTICES
+from .prototypes import PROTOTYPES
+from .recipe_lattices import KNOWN_LATTICES, checked_species, interstitial_sites, sites_hint
 from .yamlread import load_yaml, parse_yaml
+
 
 __all__ = ["Amount", "Checks", "Crystal", "Defects", "Interstitial", "Recipe", "Size",
            "Substitution", "Vacancies", "load_recipe", "load_yaml", "parse_recipe", "parse_yaml"]
@@ -67,22 +70,47 @@ def _triple(value, key: str, check, message: str) -> tuple:
 @dataclass(frozen=True)
 class Crystal:
     """What to build. At most one of ``a`` (Angstrom), ``density`` (g/cm^3),
-    ``radius`` (Angstrom, touching spheres) is set; none means the reference value."""
+    ``radius`` (Angstrom, touching spheres) is set; none means the reference value.
 
-    element: str
+    A compound prototype takes ``species`` (sublattice label -> element; stored
+    as pairs in the prototype's sublattice order) instead of ``element``, which
+    is then set to the element of the first sublattice (the host for defaults).
+    """
+
+    element: str | None
     lattice: str
     a: float | None = None
     density: float | None = None
     radius: float | None = None
+    species: tuple[tuple[str, str], ...] | None = None
 
     def __post_init__(self) -> None:
-        v.element(self.element, "crystal.element")
-        if v.text(self.lattice, "crystal.lattice") not in LATTICES:
+        if v.text(self.lattice, "crystal.lattice") not in KNOWN_LATTICES:
             v.fail("crystal.lattice", self.lattice, "is not a known lattice",
-                   f"known lattices: {', '.join(LATTICES)}")
+                   f"known lattices: {', '.join(KNOWN_LATTICES)}")
+        if self.lattice in LATTICES:
+            if self.species is not None:
+                v.fail("crystal.species", dict(self.species),
+                       f"is for compound prototypes; {self.lattice} holds one element",
+                       "give crystal.element")
+            v.element(self.element, "crystal.element")
+            _set(self, "species", (("A", self.element),))
+        else:
+            _set(self, "species", checked_species(self.lattice, self.species, self.element))
+            _set(self, "element", self.species[0][1])
         which = _exclusive(self, ("a", "density", "radius"), "crystal", required=False)
         if which:
             _set(self, which, v.number(getattr(self, which), f"crystal.{which}"))
+        if self.lattice in PROTOTYPES and which == "radius":
+            v.fail("crystal.radius", self.radius, f"has no single meaning for {self.lattice}",
+                   "give crystal.a (Angstrom) or crystal.density (g/cm^3)")
+        if self.lattice in PROTOTYPES and which is None:
+            raise InputError(f"is required for {self.lattice}", key="crystal.a",
+                             hint="give crystal.a (Angstrom) or crystal.density (g/cm^3)")
+
+    def elements(self) -> tuple[str, ...]:
+        """The element of each sublattice, without repeats, in sublattice order."""
+        return tuple(dict.fromkeys(e for _, e in self.species))
 
 
 @dataclass(frozen=True)
@@ -248,14 +276,14 @@ class Recipe:
         _set(self, "outputs", _outputs(self.outputs))
         if self.types is not None:
             _set(self, "types", _types(self.types))
-        sites = LATTICES[self.crystal.lattice].interstitials
+        sites = interstitial_sites(self.crystal.lattice)
         for i, item in enumerate(self.defects.interstitials):
             if item.site not in sites:
                 v.fail(f"defects.interstitials[{i}].site", item.site,
                        f"is not an interstitial site of {self.crystal.lattice}",
-                       f"sites of {self.crystal.lattice}: {', '.join(sites)}")
+                       sites_hint(self.crystal.lattice, sites))
         if self.types is not None:
-            needed = [self.crystal.element] + [s.element for s in self.defects.substitutions]
+            needed = [*self.crystal.elements()] + [s.element for s in self.defects.substitutions]
             needed += [i.element for i in self.defects.interstitials]
             missing = [e for e in dict.fromkeys(needed) if e not in self.types]
             if missing:
@@ -267,7 +295,7 @@ class Recipe:
         in recipe order, then interstitials."""
         if self.types:
             return self.types
-        order = [self.crystal.element]
+        order = [*self.crystal.elements()]
         order += [s.element for s in self.defects.substitutions]
         order += [i.element for i in self.defects.interstitials]
         return tuple(dict.fromkeys(order))
@@ -380,7 +408,7 @@ class _Checker:
 
 
 TOP_KEYS = ("name", "crystal", "size", "seed", "outputs", "defects", "types", "checks", "sweep")
-CRYSTAL_KEYS = ("element", "lattice", "a", "density", "radius")
+CRYSTAL_KEYS = ("element", "lattice", "a", "density", "radius", "species")
 SIZE_KEYS = ("repeat", "atoms", "min_length")
 DEFECT_KEYS = ("vacancies", "substitutions", "interstitials", "min_separation")
 VACANCY_KEYS = ("count", "fraction", "on")
@@ -426,10 +454,16 @@ def load_recipe(path: str | Path) -> Recipe:
 def _crystal(c: _Checker, value: Any) -> Crystal:
     data = c.mapping(value, "crystal")
     c.known_keys(data, CRYSTAL_KEYS, "crystal")
-    for key in ("element", "lattice"):
-        if key not in data:
-            c.fail_missing(f"crystal.{key}", "is required")
-    return c.make(Crystal, "", **data)
+    if "lattice" not in data:
+        c.fail_missing("crystal.lattice", "is required")
+    one_species = not isinstance(data["lattice"], str) or data["lattice"] in LATTICES
+    if "element" not in data and "species" not in data and one_species:
+        c.fail_missing("crystal.element", "is required")
+    fields = dict(data)
+    fields.setdefault("element", None)
+    if "species" in fields:
+        c.mapping(fields["species"], "crystal.species")
+    return c.make(Crystal, "", **fields)
 
 
 def _size(c: _Checker, value: Any) -> Size:
@@ -470,7 +504,7 @@ def _defects(c: _Checker, value: Any, crystal: Crystal) -> Defects:
         subs.append(c.make(Substitution, key, s["element"], _amount(c, s, key),
                            s.get("on", crystal.element)))
     inters = []
-    sites = LATTICES[crystal.lattice].interstitials
+    sites = interstitial_sites(crystal.lattice)
     for i, item in enumerate(c.list_of_mappings(data.get("interstitials", []),
                                                 "defects.interstitials")):
         key = f"defects.interstitials[{i}]"
@@ -479,7 +513,7 @@ def _defects(c: _Checker, value: Any, crystal: Crystal) -> Defects:
         for need in ("element", "site"):
             if need not in s:
                 c.fail_missing(f"{key}.{need}", "is required",
-                               f"sites of {crystal.lattice}: {', '.join(sites)}")
+                               sites_hint(crystal.lattice, sites))
         inters.append(c.make(Interstitial, key, s["element"], s["site"], _amount(c, s, key)))
     return c.make(Defects, "", vacancies, tuple(subs), tuple(inters),
                   data.get("min_separation"))

@@ -7,6 +7,7 @@ from __future__ import annotations
 
 import json
 import math
+import re
 
 import numpy as np
 import pytest
@@ -14,6 +15,8 @@ import pytest
 from conftest import recipe_dict
 
 LATTICES = ["sc", "bcc", "fcc", "diamond"]
+COMPOUND_PROTOTYPES = ["rocksalt", "cesium-chloride", "zincblende", "fluorite", "perovskite",
+                       "l1_2", "a15", "c15", "heusler", "half-heusler", "spinel"]
 # one element per lattice, with a density (CRC Handbook, from memory) and an
 # atomic radius (half the nearest-neighbour distance of Kittel's a, from memory)
 HOSTS = {"sc": ("Po", 9.20, 3.35 / 2), "bcc": ("Fe", 7.87, 2.87 * math.sqrt(3) / 4),
@@ -139,13 +142,19 @@ def test_plan_agrees_with_make(cli, recipe_file, tmp_path):
     assert planned["box"] == pytest.approx(report["cell_lengths"])
 
 
-@pytest.mark.parametrize("lattice", LATTICES)
+@pytest.mark.parametrize("lattice", LATTICES + COMPOUND_PROTOTYPES)
 def test_template_builds(cli, tmp_path, lattice):
     text = cli("template", lattice).output
     path = tmp_path / "t.yaml"
     path.write_text(text)
     result = cli("make", path, "--out", tmp_path / "out")
     assert result.exit_code == 0, result.output
+    assert "all checks passed" in result.output
+    # the commented defects and checks, uncommented, build and pass too
+    tail = text[text.index("# defects:"):]
+    path.write_text(text + re.sub(r"^# ", "", tail, flags=re.M))
+    result = cli("make", path, "--out", tmp_path / "out2")
+    assert result.exit_code == 0 and "all checks passed" in result.output, result.output
 
 
 def test_report_has_the_documented_keys(cli, recipe_file, tmp_path):
