@@ -91,7 +91,8 @@ def counts_within(structure: Structure, crystal: Crystal, *, workers: int = 2,
         for k, value in enumerate(values[:-1]):
             counts = neighbours.coordination_counts(structure.cell, structure.positions,
                                                     float(value), workers=workers, sites=sites)
-            counted[which == k] = counts[which == k]
+            mine = which == k
+            counted[mine] = counts[mine]
     return counted
 
 

@@ -19,8 +19,7 @@ import numpy as np
 from .errors import InputError
 from .crystal import Crystal, resolve_crystal
 from .defect_plan import count_defects
-from .lattices import LATTICES, shells, touching_radius_factor
-from .prototypes import PROTOTYPES, basis as prototype_basis
+from .lattices import touching_radius_factor
 from .recipe import Recipe
 from .structure import Structure
 
@@ -104,11 +103,9 @@ def lattice_constant(recipe: Recipe) -> tuple[float, str]:
 
 
 def _basis_elements(crystal) -> tuple[str, ...]:
-    """The element on each basis site of the recipe's lattice or prototype."""
-    if crystal.lattice in LATTICES:
-        return (crystal.element,) * LATTICES[crystal.lattice].n_basis
-    on = dict(crystal.species)
-    return tuple(on[label] for label in prototype_basis(PROTOTYPES[crystal.lattice])[1])
+    """The element on each basis site of the recipe's lattice or prototype (from the
+    crystal resolved at a = 1, cached; the basis does not depend on a)."""
+    return resolve_crystal(crystal.lattice, 1.0, crystal.species).elements
 
 
 def _reference_constant(recipe: Recipe) -> float:
@@ -307,11 +304,6 @@ def site_positions(crystal: Crystal, repeat: tuple[int, int, int],
     i, rest = np.divmod(cell, n2 * n3)
     j, k = np.divmod(rest, n3)
     return crystal.to_cartesian(np.stack([i, j, k], axis=1) + crystal.site_frac[s])
-
-
-def nearest_neighbour_distance(lattice: str, a: float) -> float:
-    """Nearest-neighbour distance of the ideal lattice, Angstrom (geometry of the basis)."""
-    return shells(lattice).nearest * a
 
 
 def _physical_memory() -> int | None:

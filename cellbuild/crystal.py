@@ -86,9 +86,7 @@ class Crystal:
     def grid_cutoff(self) -> np.ndarray:
         """Audit cutoff (Angstrom) of every grid site: :attr:`site_cutoff` on the
         basis, :attr:`audit_cutoff` on interstitial sites; (n_grid,) float64."""
-        out = np.full(self.n_grid, self.audit_cutoff)
-        out[:self.n_basis] = self.site_cutoff
-        return out
+        return _grid_cutoffs(self.n_grid, self.audit_cutoff, self.site_cutoff)
 
     @property
     def nearest(self) -> float:
@@ -125,6 +123,13 @@ class Crystal:
         return positions @ np.linalg.inv(self.cell)
 
 
+def _grid_cutoffs(n_grid: int, cutoff: float, site_cutoff) -> np.ndarray:
+    """Per grid site: ``site_cutoff`` on the basis, ``cutoff`` on interstitial sites."""
+    out = np.full(n_grid, cutoff)
+    out[:len(site_cutoff)] = site_cutoff
+    return out
+
+
 def _is_diagonal(m: np.ndarray) -> bool:
     return not np.any(m - np.diag(np.diag(m)))
 
@@ -150,9 +155,10 @@ def _resolve(prototype: str, a: float, species: tuple[tuple[str, str], ...]) -> 
     geometry = shells(prototype)
     scaled = Shells(tuple(d * a for d in geometry.distances), geometry.counts)
     cutoff = geometry.audit_cutoff * a  # (d1 + d2) / 2 in units of a, then scaled
+    unit = first_shells(lat.cell, basis, lat.sublattices)
     return _crystal(prototype, lat.title, a, cell, basis, lat.sublattices, dict(species),
                     lat.interstitials, lat.space_group, scaled, cutoff,
-                    (cutoff,) * lat.n_basis)
+                    (cutoff,) * lat.n_basis, unit)
 
 
 def _resolve_compound(prototype: str, a: float, species) -> Crystal:
@@ -165,11 +171,12 @@ def _resolve_compound(prototype: str, a: float, species) -> Crystal:
     closest = min(unit.values(), key=lambda sh: sh.distance)  # first in table order on ties
     scaled = Shells((closest.distance * a,), (closest.coordination,))
     return _crystal(prototype, proto.title, a, cell, basis, labels, dict(species), {},
-                    proto.space_group, scaled, max(site_cutoff), site_cutoff)
+                    proto.space_group, scaled, max(site_cutoff), site_cutoff, unit)
 
 
 def _crystal(prototype, title, a, cell, basis, labels, on, interstitials, space_group,
-             scaled, cutoff, site_cutoff) -> Crystal:
+             scaled, cutoff, site_cutoff, unit) -> Crystal:
+    """The :class:`Crystal`; ``unit`` holds the first shells in units of ``a``."""
     missing = [lb for lb in dict.fromkeys(labels) if lb not in on]
     if missing:
         raise KeyError(f"{prototype}: no element for sublattice {missing[0]}")
@@ -178,17 +185,15 @@ def _crystal(prototype, title, a, cell, basis, labels, on, interstitials, space_
         parts.append(np.array(sites, dtype=np.float64))
         kinds += [kind] * len(sites)
     site_frac = np.concatenate(parts)
-    unit = first_shells(cell / a, basis, tuple(labels))
     in_angstrom = {lb: FirstShell(sh.distance * a, sh.counts, sh.outer * a, sh.next_distance * a)
                    for lb, sh in unit.items()}
-    cutoffs = np.full(len(site_frac), cutoff)  # as Crystal.grid_cutoff
-    cutoffs[:len(basis)] = site_cutoff
     return Crystal(
         prototype=prototype, title=title, a=a, cell=cell, basis=basis,
         sublattice=tuple(labels), elements=tuple(on[label] for label in labels),
         site_frac=site_frac, site_kind=tuple(kinds), space_group=space_group,
         shells=scaled, audit_cutoff=cutoff,
-        offsets=_neighbour_offsets(cell, site_frac, cutoffs),
+        offsets=_neighbour_offsets(cell, site_frac,
+                                   _grid_cutoffs(len(site_frac), cutoff, site_cutoff)),
         first_shells=in_angstrom, site_cutoff=tuple(float(c) for c in site_cutoff),
     )
 

@@ -141,3 +141,50 @@ def test_vacancy_supercell_space_group_matches_spglib_without_the_marker():
     b = _built(vacancies={"count": 2}, substitutions=[{"element": "Ni", "count": 1}])
     found = audit(b.plan, b.structure, b.placements).values["space_group"]
     assert found["number"] == spacegroup(b.structure, symprec=found["symprec"])[1]
+
+
+def _built_compound(name, species, a, **defects):
+    data = {"name": name, "crystal": {"lattice": name, "species": species, "a": a},
+            "size": {"repeat": [3, 3, 3]}, "seed": 2, "defects": defects}
+    return build(parse_recipe(data))
+
+
+# SrTiO3, a = 3.905 A (room temperature, from memory); MgO a = 4.212 A (from memory)
+PEROVSKITE = ("perovskite", {"A": "Sr", "B": "Ti", "X": "O"}, 3.905)
+ROCKSALT = ("rocksalt", {"A": "Mg", "B": "O"}, 4.212)
+
+
+@pytest.mark.parametrize("compound", [PEROVSKITE, ROCKSALT])
+def test_compound_untouched_passes_and_a_moved_anion_fails_coordination(compound):
+    b = _built_compound(*compound, vacancies={"count": 2, "on": "O"})
+    assert _failed(b, b.structure)[0] == set()
+    oxygen = np.flatnonzero(b.structure.species == b.structure.symbols.index("O"))
+    positions = b.structure.positions.copy()
+    # 0.6 A along x: off its site, so its own count and its cation neighbours' change
+    positions[oxygen[4]] += [0.6, 0.0, 0.0]
+    failed, result = _failed(b, dataclasses.replace(b.structure, positions=positions))
+    assert "coordination" in failed
+    assert result.values["coordination"]["mismatched"] >= 1
+
+
+def test_compound_with_species_swapped_between_sublattices_fails_composition():
+    b = _built_compound(*ROCKSALT)
+    species = b.structure.species.copy()
+    mg, o = b.structure.symbols.index("Mg"), b.structure.symbols.index("O")
+    species[np.flatnonzero(species == o)[:3]] = mg  # three anion sites now hold Mg
+    failed, _ = _failed(b, dataclasses.replace(b.structure, species=species))
+    # the symmetry of the perfect crystal is broken too (spglib sees the swap)
+    assert failed == {"composition", "space_group"}
+
+
+def test_perovskite_titanium_counts_within_its_own_cutoff():
+    """Each sublattice counts within its own cutoff: Ti's 6 O at a/2 and Sr's 12 O
+    at a/sqrt2 cannot share one (a cutoff below a/sqrt2 gives Sr none). Textbook
+    geometry (common practice): Ti 6 O, Sr 12 O, O 2 Ti."""
+    b = _built_compound(*PEROVSKITE)
+    result = audit(b.plan, b.structure, b.placements)
+    by_species = result.values["coordination"]["by_species"]
+    n_cells = 27
+    assert by_species == {"Sr": {"12": n_cells}, "Ti": {"6": n_cells}, "O": {"2": 3 * n_cells}}
+    cutoffs = result.values["coordination"]["cutoff_by_sublattice"]
+    assert cutoffs["B"] < 3.905 * np.sqrt(2) / 2 < cutoffs["A"]

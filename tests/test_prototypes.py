@@ -172,6 +172,7 @@ def test_resolved_compound_counts_textbook_neighbours_per_site(name):
     from cellbuild.build import replicate
     from cellbuild.crystal import resolve_crystal
 
+    # room-temperature lattice constants, Angstrom, from memory
     a = {"rocksalt": 4.212, "perovskite": 3.905, "spinel": 8.08, "c15": 7.05,
          "fluorite": 5.47}[name]
     crystal = resolve_crystal(name, a, SPECIES[name])
@@ -223,6 +224,7 @@ def test_audit_counts_per_sublattice_agree_with_topology_around_a_vacancy(
     from cellbuild.crystal import resolve_crystal
     from cellbuild.structure import Structure
 
+    # room-temperature lattice constants, Angstrom, from memory
     a = {"rocksalt": 4.212, "perovskite": 3.905}[name]
     crystal = resolve_crystal(name, a, SPECIES[name])
     symbols = tuple(dict.fromkeys(e for _, e in SPECIES[name]))

@@ -212,3 +212,16 @@ def test_templates_load_as_text_with_their_commented_sections(lattice):
     assert recipe.defects.vacancies.amount.count == 1
     assert recipe.defects.interstitials[0].element == "C"
     assert recipe.checks.min_distance == 1.0
+
+
+def test_readme_compound_snippet_builds_as_yaml_text(cli, tmp_path):
+    """The indented `crystal:` line of the README's compound paragraph, read as YAML
+    text with a size added, builds and passes its audit."""
+    text = README.read_text(encoding="utf-8")
+    found = re.findall(r"^  ```yaml\n(  crystal: \{lattice: .*?)^  ```", text, re.S | re.M)
+    assert len(found) == 1, found
+    path = tmp_path / "compound.yaml"
+    path.write_text("name: readme-compound\n" + re.sub(r"^  ", "", found[0], flags=re.M)
+                    + "size: {repeat: 2}\n")
+    result = cli("make", path, "--out", tmp_path / "out")
+    assert result.exit_code == 0 and "all checks passed" in result.output, result.output
