@@ -114,6 +114,13 @@ def audit(plan: Plan, structure: Structure, placements: list[Placement],
     values["composition"] = composition
     checks.append(_composition_check(plan, composition, placements))
 
+    values["sublattices"], check = _sublattice_check(plan, structure, placements)
+    checks.append(check)
+
+    values["net_charge"] = structure.net_charge()
+    if values["net_charge"] is not None:
+        checks.append(_net_charge_check(values["net_charge"], recipe.checks.net_charge))
+
     lengths = np.linalg.norm(structure.cell, axis=1)
     values["cell_lengths"] = [float(x) for x in lengths]
     checks.append(_cell_check(plan, structure.cell))
@@ -264,14 +271,68 @@ def _composition_check(plan: Plan, composition: dict[str, int], placements) -> C
     for element in plan.crystal.elements:  # one entry per basis site
         expected[element] = expected.get(element, 0) + plan.n_cells
     for p in placements:
-        if p.kind in ("vacancy", "substitution"):
-            expected[p.on] -= p.count
-        if p.kind in ("substitution", "interstitial"):
+        if p.host is not None:  # the element the sites held: removed or replaced
+            expected[p.host] -= p.count
+        if p.kind != "vacancy":
             expected[p.element] = expected.get(p.element, 0) + p.count
     expected = {k: v for k, v in expected.items() if v}
     ok = composition == expected
     return Check("composition", ok,
                  f"counted {_formula(composition)}; the recipe asks {_formula(expected)}")
+
+
+def _sublattice_check(plan: Plan, structure: Structure, placements) -> tuple[dict, Check]:
+    """Atoms of each element on each sublattice, against the perfect crystal with
+    the placements applied; every lattice atom must also sit, from its
+    coordinates, within 1e-6 Angstrom of its grid site (so a sublattice is
+    where its atoms are, not only what their site ids say)."""
+    crystal = plan.crystal
+    local = structure.site % crystal.n_grid
+    on_lattice = local < crystal.n_basis
+    labels = tuple(dict.fromkeys(crystal.sublattice))
+    label_of_site = np.array([labels.index(lb) for lb in crystal.sublattice], dtype=np.int64)
+    n_sym = len(structure.symbols)
+    code = label_of_site[local[on_lattice]] * n_sym + structure.species[on_lattice]
+    counted = np.bincount(code, minlength=len(labels) * n_sym).reshape(len(labels), n_sym)
+    expected = np.zeros_like(counted)
+    for s, element in enumerate(crystal.elements):
+        expected[label_of_site[s], structure.symbols.index(element)] += plan.n_cells
+    for p in placements:
+        if p.host is None:
+            continue
+        where = np.bincount(label_of_site[p.site_ids % crystal.n_grid], minlength=len(labels))
+        expected[:, structure.symbols.index(p.host)] -= where
+        if p.kind != "vacancy":
+            expected[:, structure.symbols.index(p.element)] += where
+    ideal = site_positions(crystal, plan.repeat, structure.site[on_lattice])
+    off = _periodic_offset(structure.cell, structure.positions[on_lattice] - ideal)
+    found = {lb: {e: int(n) for e, n in zip(structure.symbols, row) if n}
+             for lb, row in zip(labels, counted)}
+    ok = bool(np.array_equal(counted, expected)) and off <= 1e-6
+    wanted = {lb: {e: int(n) for e, n in zip(structure.symbols, row) if n}
+              for lb, row in zip(labels, expected)}
+    text = "; ".join(f"{lb}: {_formula(found[lb])}" for lb in labels)
+    return found, Check("sublattice_occupancy", ok,
+                        f"{text} (from site ids; atoms at most {off:.1e} Angstrom from their "
+                        f"sites); expected " + "; ".join(f"{lb}: {_formula(wanted[lb])}"
+                                                         for lb in labels))
+
+
+def _periodic_offset(cell: np.ndarray, delta: np.ndarray) -> float:
+    """Largest length (Angstrom) of ``delta`` vectors taken modulo the cell."""
+    if not len(delta):
+        return 0.0
+    frac = delta @ np.linalg.inv(cell)
+    frac -= np.round(frac)
+    return float(np.sqrt(np.max(np.einsum("ij,ij->i", frac @ cell, frac @ cell))))
+
+
+def _net_charge_check(net: float, expected: float) -> Check:
+    """The cell's net charge (from every atom's charge) against ``checks.net_charge``."""
+    ok = abs(net - expected) <= 1e-6
+    return Check("net_charge", ok,
+                 f"net charge {net:+.6f} e from the atoms' charges; expected {expected:+g} "
+                 "(checks.net_charge)")
 
 
 def _formula(composition: dict[str, int]) -> str:

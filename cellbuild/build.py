@@ -213,7 +213,7 @@ def resolve(recipe: Recipe, *, strict: bool = False) -> Plan:
                          hint="choose a smaller size", file=recipe.source)
     counts = count_defects(recipe, crystal, math.prod(repeat))  # refuses impossible requests
     n_atoms += sum(n if req.kind == "interstitial" else -n
-                   for req, n in counts if req.kind != "substitution")
+                   for req, n in counts if req.kind in ("vacancy", "interstitial"))
     return Plan(recipe, crystal, source, repeat, n_sites, n_atoms, box, memory, files,
                 counts, tuple(warnings))
 

@@ -206,6 +206,9 @@ def _plan_text(p: dict) -> str:
     ]
     if p["size_note"]:
         lines.append(f"  note: {p['size_note']}")
+    if len(p["sublattices"]) > 1:
+        lines.append("  sublattices       " + ", ".join(
+            f"{label} {s['element']} {s['sites']:,}" for label, s in p["sublattices"].items()))
     for d in p["defects"]:
         lines.append(f"  {d['kind']:17s} {d['placed']:,} {d['element']} on {d['on']} ({d['key']})")
     lines.append(f"  memory (est.)     {p['estimated_memory_bytes'] / 1e6:,.1f} MB")
@@ -217,7 +220,7 @@ def _plan_text(p: dict) -> str:
 
 
 @app.command()
-def template(lattice: str = typer.Argument(..., help="sc, bcc, fcc or diamond.")) -> None:
+def template(lattice: str = typer.Argument(..., help="a lattice or prototype: fcc, rocksalt, ...")) -> None:
     """Print a commented recipe for LATTICE that `make` accepts as it is."""
     from .templates import template_for
 

@@ -1,8 +1,9 @@
-"""Seeded placement of vacancies, substitutions and interstitials.
+"""Seeded placement of vacancies, substitutions, antisites and interstitials.
 
 All randomness comes from one ``numpy.random.Generator`` (PCG64) made from the
-recipe's seed and consumed in a fixed order: vacancies, substitutions in recipe
-order, interstitials in recipe order. The same recipe and seed therefore give
+recipe's seed and consumed in a fixed order: vacancies, Schottky defects (one
+draw per sublattice), substitutions, antisites (the first site of each pair,
+then the second), interstitials, each in recipe order. No site is drawn twice. The same recipe and seed therefore give
 the same structure (for a given numpy version: numpy keeps PCG64's stream
 stable, and ``Generator.permutation`` has been stable across releases).
 """
@@ -23,12 +24,14 @@ class Placement:
     """One defect request as placed.
 
     Attributes:
-        kind: ``vacancy``, ``substitution`` or ``interstitial``.
+        kind: ``vacancy``, ``substitution``, ``antisite`` or ``interstitial``.
         element: the element placed (for vacancies, the element removed).
-        on: the element whose sites were used (interstitials: the site kind).
+        on: the target as written (sublattice label, element or interstitial kind).
         key: the recipe key of the request, for messages.
         asked: the request as given: {"count": n} or {"fraction": f}.
         site_ids: grid site ids used (see :mod:`cellbuild.build`), sorted.
+        host: the element those sites held in the perfect crystal (None for
+            interstitial sites).
     """
 
     kind: str
@@ -37,6 +40,7 @@ class Placement:
     key: str
     asked: dict
     site_ids: np.ndarray
+    host: str | None = None
 
     @property
     def count(self) -> int:
@@ -57,7 +61,7 @@ def place_defects(plan: Plan, perfect: Structure) -> tuple[Structure, list[Place
     picker = _Picker(plan, rng)
     placements = [
         Placement(req.kind, req.element, req.on, req.key, asked(req.amount),
-                  np.sort(picker.pick(req, n)))
+                  np.sort(picker.pick(req, n)), req.host)
         for req, n in counts
     ]
     return apply(plan, perfect, placements), placements
@@ -80,7 +84,7 @@ def apply(plan: Plan, perfect: Structure, placements: list[Placement]) -> Struct
         index = cell * n_basis + s
         if p.kind == "vacancy":
             keep[index] = False
-        else:
+        else:  # a substitution or one side of an antisite pair
             species[index] = symbols.index(p.element)
     positions, site = perfect.positions[keep], perfect.site[keep]
     species = species[keep]
@@ -102,32 +106,28 @@ class _Picker:
         self.plan = plan
         self.rng = rng
         self.crystal = plan.crystal
-        self.taken: dict[str, np.ndarray] = {}  # per target: mask over its pool
+        # one mask over every grid site: targets may overlap (label and element)
+        self.taken = np.zeros(plan.n_cells * self.crystal.n_grid, dtype=bool)
         self.separation = plan.recipe.defects.min_separation
         self.accepted = np.empty((0, 3))
 
-    def _pool(self, on: str) -> np.ndarray:
-        """All grid site ids of ``on`` (the host element or an interstitial kind)."""
-        crystal = self.crystal
-        if on in crystal.interstitial_kinds:
-            local = np.flatnonzero(np.array(crystal.site_kind) == on)
-        else:  # an element: the lattice sites it occupies in the perfect crystal
-            local = np.flatnonzero(np.array(crystal.elements) == on)
+    def _pool(self, req: Request) -> np.ndarray:
+        """All grid site ids of the request's target sites, cell by cell."""
+        local = np.array(req.sites, dtype=np.int64)
         cells = np.arange(self.plan.n_cells, dtype=np.int64)
-        return (cells[:, None] * crystal.n_grid + local[None, :]).ravel()
+        return (cells[:, None] * self.crystal.n_grid + local[None, :]).ravel()
 
     def pick(self, req: Request, n: int) -> np.ndarray:
-        """``n`` distinct free sites of ``req.on``, drawn with the shared generator."""
+        """``n`` distinct free sites of ``req``'s target, drawn with the shared generator."""
         if n == 0:
             return np.empty(0, dtype=np.int64)
-        pool = self._pool(req.on)
-        taken = self.taken.setdefault(req.on, np.zeros(pool.size, dtype=bool))
-        free = np.flatnonzero(~taken)  # positions in the pool
+        pool = self._pool(req)
+        free = np.flatnonzero(~self.taken[pool])  # positions in the pool
         if self.separation is None:
             chosen = free[self.rng.choice(free.size, size=n, replace=False)]
         else:
             chosen = self._pick_separated(req, pool, free, n)
-        taken[chosen] = True
+        self.taken[pool[chosen]] = True
         return pool[chosen]
 
     def _pick_separated(self, req: Request, pool: np.ndarray, free: np.ndarray,

@@ -62,7 +62,8 @@ def build(recipe: Recipe, *, strict: bool = False, progress: Progress | None = N
     note("defects")
     structure, placements = place_defects(plan, perfect)
     # one atom order for every format, so defect atom ids hold in each file
-    return Built(plan, structure.grouped_by_species(), placements)
+    return Built(plan, structure.grouped_by_species().with_charges(recipe.charge_of()),
+                 placements)
 
 
 def planned_paths(recipe: Recipe, out_dir: str | os.PathLike) -> list[Path]:
@@ -165,10 +166,13 @@ def make_report(built: Built, result: Audit, outputs: dict[str, WrittenFile],
         "size_note": plan.size_note,
         "n_atoms": structure.n_atoms,
         "composition": v["composition"],
+        "sublattices": v["sublattices"],
         "types": list(structure.symbols),
         "cell_lengths": v["cell_lengths"],
         "volume": structure.volume,
         "density": v["density"],
+        "charges": recipe.charge_of(),
+        "net_charge": v["net_charge"],
         "ideal_crystal": v["ideal_crystal"],
         "coordination": v["coordination"],
         "min_distance": v["min_distance"],
@@ -209,7 +213,7 @@ def defect_sites(built: Built) -> dict:
         if p.kind != "vacancy":
             idx = order[np.searchsorted(structure.site, p.site_ids, sorter=order)]
             entry["atom_ids"] = (idx + 1).tolist()
-        if p.kind != "substitution":
+        if p.kind in ("vacancy", "interstitial"):
             pos = site_positions(plan.crystal, plan.repeat, p.site_ids)
             entry["positions"] = np.round(pos, 10).tolist()
         entries.append(entry)

@@ -26,12 +26,23 @@ def describe(plan: Plan) -> dict:
         "n_atoms": n_atoms,
         "target_atoms": recipe.size.atoms,
         "size_note": plan.size_note,
+        "sublattices": _sublattices(plan),
         "defects": defects,
+        "charges": recipe.charge_of(),
         "outputs": list(recipe.outputs),
         "estimated_memory_bytes": plan.estimated_memory,
         "estimated_file_bytes": {k: int(v * scale) for k, v in plan.estimated_files.items()},
         "warnings": list(plan.warnings),
     }
+
+
+def _sublattices(plan: Plan) -> dict:
+    """Sublattice label -> its element and number of sites in the supercell."""
+    crystal, out = plan.crystal, {}
+    for label, element in zip(crystal.sublattice, crystal.elements):
+        entry = out.setdefault(label, {"element": element, "sites": 0})
+        entry["sites"] += plan.n_cells
+    return out
 
 
 def describe_plans(path: str | Path, *, strict: bool = False) -> list[dict]:

@@ -22,12 +22,14 @@ from . import recipe_values as v
 from .errors import InputError
 from .lattices import LATTICES
 from .prototypes import PROTOTYPES
+from .recipe_defects import (Amount, Antisite, Defects, Interstitial, Schottky, Substitution,
+                             Vacancies)
 from .recipe_lattices import KNOWN_LATTICES, checked_species, interstitial_sites, sites_hint
 from .yamlread import load_yaml, parse_yaml
 
 
-__all__ = ["Amount", "Checks", "Crystal", "Defects", "Interstitial", "Recipe", "Size",
-           "Substitution", "Vacancies", "load_recipe", "load_yaml", "parse_recipe", "parse_yaml"]
+__all__ = ["Amount", "Antisite", "Checks", "Crystal", "Defects", "Interstitial", "Recipe",
+           "Schottky", "Size", "Substitution", "Vacancies", "load_recipe", "load_yaml", "parse_recipe", "parse_yaml"]
 
 FORMAT_KEYS = ("lammps-data", "cif", "xyz", "poscar")
 NAME_PATTERN = re.compile(r"^[A-Za-z0-9_.-]{1,200}$")
@@ -36,21 +38,8 @@ DEFAULT_OUTPUTS = FORMAT_KEYS
 Lines = Mapping[str, int]
 
 
-def _set(obj, name: str, value) -> None:
-    """Store a normalised field value on a frozen dataclass (from ``__post_init__`` only)."""
-    object.__setattr__(obj, name, value)
-
-
-def _exclusive(obj, names: tuple[str, ...], prefix: str, *, required: bool) -> str | None:
-    """The one of ``names`` that is set on ``obj``; refuses two (and none if ``required``)."""
-    given = [n for n in names if getattr(obj, n) is not None]
-    if len(given) > 1:
-        v.fail(v.join(prefix, given[1]), getattr(obj, given[1]),
-               f"cannot be given together with `{v.join(prefix, given[0])}`",
-               f"give exactly one of {', '.join(names)}")
-    if required and not given:
-        raise InputError(f"needs one of {', '.join(names)}", key=prefix or None)
-    return given[0] if given else None
+_set = v.store
+_exclusive = v.exclusive
 
 
 def _triple(value, key: str, check, message: str) -> tuple:
@@ -138,113 +127,22 @@ class Size:
 
 
 @dataclass(frozen=True)
-class Amount:
-    """A defect amount: an exact ``count`` or a ``fraction`` (0 to 1) of the sites of ``on``.
-
-    Errors name ``count``/``fraction``; the parser prefixes the defect's key."""
-
-    count: int | None = None
-    fraction: float | None = None
-
-    def __post_init__(self) -> None:
-        which = _exclusive(self, ("count", "fraction"), "", required=True)
-        if which == "count":
-            _set(self, "count", v.integer(self.count, "count"))
-        else:
-            _set(self, "fraction", v.fraction(self.fraction, "fraction"))
-
-
-def _is_amount(value, key: str) -> None:
-    if not isinstance(value, Amount):
-        v.fail(key, value, f"must be an Amount, not {v.kind(value)}")
-
-
-@dataclass(frozen=True)
-class Vacancies:
-    """Vacancies on the sites of element ``on``."""
-
-    amount: Amount
-    on: str
-
-    def __post_init__(self) -> None:
-        _is_amount(self.amount, "defects.vacancies.amount")
-        v.element(self.on, "defects.vacancies.on")
-
-
-@dataclass(frozen=True)
-class Substitution:
-    """``element`` on sites of ``on``. Errors name ``element``/``on``; the parser
-    prefixes ``defects.substitutions[i]``."""
-
-    element: str
-    amount: Amount
-    on: str
-
-    def __post_init__(self) -> None:
-        v.element(self.element, "element")
-        _is_amount(self.amount, "amount")
-        v.element(self.on, "on")
-        if self.element == self.on:
-            v.fail("element", self.element, f"substitutes `{self.on}` by itself")
-
-
-@dataclass(frozen=True)
-class Interstitial:
-    """``element`` on interstitial sites of kind ``site`` (checked against the lattice
-    by :class:`Recipe`). Errors name ``element``/``site``."""
-
-    element: str
-    site: str
-    amount: Amount
-
-    def __post_init__(self) -> None:
-        v.element(self.element, "element")
-        v.text(self.site, "site")
-        _is_amount(self.amount, "amount")
-
-
-@dataclass(frozen=True)
-class Defects:
-    """Defect requests; ``min_separation`` in Angstrom between any two defects."""
-
-    vacancies: Vacancies | None = None
-    substitutions: tuple[Substitution, ...] = ()
-    interstitials: tuple[Interstitial, ...] = ()
-    min_separation: float | None = None
-
-    def __post_init__(self) -> None:
-        if self.vacancies is not None and not isinstance(self.vacancies, Vacancies):
-            v.fail("defects.vacancies", self.vacancies,
-                   f"must be Vacancies, not {v.kind(self.vacancies)}")
-        for name, cls in (("substitutions", Substitution), ("interstitials", Interstitial)):
-            items = v.sequence(getattr(self, name), f"defects.{name}", "must be a list")
-            for i, item in enumerate(items):
-                if not isinstance(item, cls):
-                    v.fail(f"defects.{name}[{i}]", item,
-                           f"must be a {cls.__name__}, not {v.kind(item)}")
-            _set(self, name, items)
-        if self.min_separation is not None:
-            _set(self, "min_separation",
-                 v.number(self.min_separation, "defects.min_separation"))
-
-    @property
-    def any(self) -> bool:
-        return bool(self.vacancies or self.substitutions or self.interstitials)
-
-
-@dataclass(frozen=True)
 class Checks:
     """Audit settings. ``min_distance`` in Angstrom; None: half the nearest-neighbour
     distance. ``physical_spacing``: refuse a nearest-neighbour distance outside the
-    physically possible band (:mod:`cellbuild.spacing`); false builds it on purpose."""
+    physically possible band (:mod:`cellbuild.spacing`); false builds it on purpose.
+    ``net_charge``: the cell's net charge (elementary charges) expected when the
+    recipe gives ``charges``; 0 unless the cell is charged on purpose."""
 
     min_distance: float | None = None
     physical_spacing: bool = True
+    net_charge: float = 0.0
 
     def __post_init__(self) -> None:
         if self.min_distance is not None:
             _set(self, "min_distance", v.number(self.min_distance, "checks.min_distance"))
         v.boolean(self.physical_spacing, "checks.physical_spacing")
+        _set(self, "net_charge", v.number(self.net_charge, "checks.net_charge", positive=False))
 
 
 @dataclass(frozen=True)
@@ -260,6 +158,7 @@ class Recipe:
     types: tuple[str, ...] | None = None
     checks: Checks = field(default_factory=Checks)
     source: str | None = None
+    charges: tuple[tuple[str, float], ...] | None = None
 
     def __post_init__(self) -> None:
         name = v.text(self.name, "name")
@@ -282,23 +181,46 @@ class Recipe:
                 v.fail(f"defects.interstitials[{i}].site", item.site,
                        f"is not an interstitial site of {self.crystal.lattice}",
                        sites_hint(self.crystal.lattice, sites))
+        needed = self._used_elements()
         if self.types is not None:
-            needed = [*self.crystal.elements()] + [s.element for s in self.defects.substitutions]
-            needed += [i.element for i in self.defects.interstitials]
-            missing = [e for e in dict.fromkeys(needed) if e not in self.types]
+            missing = [e for e in needed if e not in self.types]
             if missing:
                 v.fail("types", list(self.types), f"does not list {', '.join(missing)}",
                        "list every element the recipe uses")
+        if self.charges is not None:
+            _set(self, "charges", _charges(self.charges, needed))
 
-    def elements(self) -> tuple[str, ...]:
-        """Elements in LAMMPS type order: ``types`` if given, else host, substituents
-        in recipe order, then interstitials."""
-        if self.types:
-            return self.types
+    def _used_elements(self) -> tuple[str, ...]:
+        """Host elements, substituents in recipe order, then interstitials."""
         order = [*self.crystal.elements()]
         order += [s.element for s in self.defects.substitutions]
         order += [i.element for i in self.defects.interstitials]
         return tuple(dict.fromkeys(order))
+
+    def elements(self) -> tuple[str, ...]:
+        """Elements in LAMMPS type order: ``types`` if given, else host, substituents
+        in recipe order, then interstitials."""
+        return self.types if self.types else self._used_elements()
+
+    def charge_of(self) -> dict[str, float] | None:
+        """Element -> ionic charge (elementary charges), or None without ``charges``."""
+        return dict(self.charges) if self.charges is not None else None
+
+
+def _charges(value, needed: tuple[str, ...]) -> tuple[tuple[str, float], ...]:
+    """``charges`` as (element, charge) pairs in the order given; every element
+    the recipe uses needs one (an element left out would silently get 0)."""
+    given = dict(value) if isinstance(value, (tuple, list)) else value
+    if not isinstance(given, dict) or not given:
+        v.fail("charges", value, "must map each element to its charge",
+               "for example charges: {Mg: 2, O: -2}")
+    pairs = tuple((v.element(e, "charges"), v.number(q, f"charges.{e}", positive=False))
+                  for e, q in given.items())
+    missing = [e for e in needed if e not in given]
+    if missing:
+        v.fail("charges", {e: q for e, q in pairs}, f"gives no charge for {', '.join(missing)}",
+               "give every element the recipe uses a charge (0 for a neutral atom)")
+    return pairs
 
 
 def _outputs(value) -> tuple[str, ...]:
@@ -407,14 +329,18 @@ class _Checker:
         return value
 
 
-TOP_KEYS = ("name", "crystal", "size", "seed", "outputs", "defects", "types", "checks", "sweep")
+TOP_KEYS = ("name", "crystal", "size", "seed", "outputs", "defects", "types", "checks",
+            "charges", "sweep")
 CRYSTAL_KEYS = ("element", "lattice", "a", "density", "radius", "species")
 SIZE_KEYS = ("repeat", "atoms", "min_length")
-DEFECT_KEYS = ("vacancies", "substitutions", "interstitials", "min_separation")
+DEFECT_KEYS = ("vacancies", "schottky", "substitutions", "antisites", "interstitials",
+               "min_separation")
 VACANCY_KEYS = ("count", "fraction", "on")
 SUBSTITUTION_KEYS = ("element", "count", "fraction", "on")
 INTERSTITIAL_KEYS = ("element", "site", "count", "fraction")
-CHECK_KEYS = ("min_distance", "physical_spacing")
+ANTISITE_KEYS = ("pair", "count")
+SCHOTTKY_KEYS = ("count",)
+CHECK_KEYS = ("min_distance", "physical_spacing", "net_charge")
 
 
 def parse_recipe(data: Any, lines: Lines | None = None, file: str | None = None) -> Recipe:
@@ -441,6 +367,8 @@ def parse_recipe(data: Any, lines: Lines | None = None, file: str | None = None)
     defects = _defects(c, data.get("defects", {}), crystal)
     checks = _checks(c, data.get("checks", {}))
     fields = {k: data[k] for k in ("seed", "outputs", "types") if k in data}
+    if "charges" in data:
+        fields["charges"] = tuple(c.mapping(data["charges"], "charges").items())
     return c.make(Recipe, "", name=name, crystal=crystal, size=size, defects=defects,
                   checks=checks, source=file, **fields)
 
@@ -487,12 +415,15 @@ def _amount(c: _Checker, data: dict, prefix: str) -> Amount:
 def _defects(c: _Checker, value: Any, crystal: Crystal) -> Defects:
     data = c.mapping(value, "defects")
     c.known_keys(data, DEFECT_KEYS, "defects")
-    vacancies = None
-    if "vacancies" in data:
-        key = "defects.vacancies"
-        s = c.mapping(data["vacancies"], key)
-        c.known_keys(s, VACANCY_KEYS, key)
-        vacancies = c.make(Vacancies, "", _amount(c, s, key), s.get("on", crystal.element))
+    vacancies = _vacancies(c, data["vacancies"], crystal) if "vacancies" in data else None
+    schottky = None
+    if "schottky" in data:
+        s = c.mapping(data["schottky"], "defects.schottky")
+        c.known_keys(s, SCHOTTKY_KEYS, "defects.schottky")
+        if "count" not in s:
+            c.fail_missing("defects.schottky.count", "is required",
+                           "give the number of Schottky defects")
+        schottky = c.make(Schottky, "defects.schottky", s["count"])
     subs = []
     for i, item in enumerate(c.list_of_mappings(data.get("substitutions", []),
                                                 "defects.substitutions")):
@@ -515,6 +446,28 @@ def _defects(c: _Checker, value: Any, crystal: Crystal) -> Defects:
                 c.fail_missing(f"{key}.{need}", "is required",
                                sites_hint(crystal.lattice, sites))
         inters.append(c.make(Interstitial, key, s["element"], s["site"], _amount(c, s, key)))
+    antisites = []
+    for i, item in enumerate(c.list_of_mappings(data.get("antisites", []), "defects.antisites")):
+        key = f"defects.antisites[{i}]"
+        s = c.mapping(item, key)
+        c.known_keys(s, ANTISITE_KEYS, key)
+        for need in ("pair", "count"):
+            if need not in s:
+                c.fail_missing(f"{key}.{need}", "is required",
+                               "for example antisites: {count: 4, pair: [Ga, As]}")
+        antisites.append(c.make(Antisite, key, s["pair"], s["count"]))
     return c.make(Defects, "", vacancies, tuple(subs), tuple(inters),
-                  data.get("min_separation"))
+                  data.get("min_separation"), tuple(antisites), schottky)
+
+
+def _vacancies(c: _Checker, value: Any, crystal: Crystal):
+    """One mapping (a :class:`Vacancies`) or a list of them (a tuple)."""
+    def one(item, key):
+        s = c.mapping(item, key)
+        c.known_keys(s, VACANCY_KEYS, key)
+        return c.make(Vacancies, key, _amount(c, s, key), s.get("on", crystal.element))
+
+    if isinstance(value, list):
+        return tuple(one(item, f"defects.vacancies[{i}]") for i, item in enumerate(value))
+    return one(value, "defects.vacancies")
 

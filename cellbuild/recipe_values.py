@@ -30,6 +30,23 @@ def kind(value: Any) -> str:
             bool: "true/false"}.get(type(value), type(value).__name__)
 
 
+def store(obj, name: str, value) -> None:
+    """Store a normalised field value on a frozen dataclass (from ``__post_init__`` only)."""
+    object.__setattr__(obj, name, value)
+
+
+def exclusive(obj, names: tuple[str, ...], prefix: str, *, required: bool) -> str | None:
+    """The one of ``names`` that is set on ``obj``; refuses two (and none if ``required``)."""
+    given = [n for n in names if getattr(obj, n) is not None]
+    if len(given) > 1:
+        fail(join(prefix, given[1]), getattr(obj, given[1]),
+             f"cannot be given together with `{join(prefix, given[0])}`",
+             f"give exactly one of {', '.join(names)}")
+    if required and not given:
+        raise InputError(f"needs one of {', '.join(names)}", key=prefix or None)
+    return given[0] if given else None
+
+
 def _is_bool(value: Any) -> bool:
     return isinstance(value, bool) or type(value).__name__ == "bool_"  # numpy.bool_ too
 

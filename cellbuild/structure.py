@@ -27,6 +27,8 @@ class Structure:
             a series of structures can share one type map.
         site: (N,) int64, index of the grid site each atom occupies
             (see :mod:`cellbuild.build` for the numbering), or ``NO_SITE``.
+        charges: (N,) float64 ionic charge of each atom in elementary charges,
+            or None for a structure without charges.
     """
 
     cell: np.ndarray
@@ -34,6 +36,7 @@ class Structure:
     species: np.ndarray
     symbols: tuple[str, ...]
     site: np.ndarray = field(default=None)  # type: ignore[assignment]
+    charges: np.ndarray | None = None
 
     def __post_init__(self) -> None:
         if self.site is None:
@@ -45,6 +48,8 @@ class Structure:
         n = len(self.positions)
         if self.positions.shape != (n, 3) or self.species.shape != (n,) or self.site.shape != (n,):
             raise ValueError("positions, species and site must describe the same atoms")
+        if self.charges is not None and self.charges.shape != (n,):
+            raise ValueError("charges must give one value per atom")
 
     @property
     def n_atoms(self) -> int:
@@ -104,7 +109,21 @@ class Structure:
             return self
         order = np.argsort(self.species, kind="stable")
         return Structure(self.cell, self.positions[order], self.species[order], self.symbols,
-                         self.site[order])
+                         self.site[order],
+                         None if self.charges is None else self.charges[order])
+
+    def with_charges(self, charge_of: dict[str, float] | None) -> "Structure":
+        """The same atoms with each atom's charge taken from its element's entry
+        in ``charge_of`` (elementary charges); ``None`` returns ``self``."""
+        if charge_of is None:
+            return self
+        table = np.array([charge_of.get(s, 0.0) for s in self.symbols], dtype=np.float64)
+        return Structure(self.cell, self.positions, self.species, self.symbols, self.site,
+                         table[self.species])
+
+    def net_charge(self) -> float | None:
+        """Sum of the atoms' charges (elementary charges), or None without charges."""
+        return None if self.charges is None else float(np.sum(self.charges))
 
     @classmethod
     def from_ase(cls, atoms) -> "Structure":

@@ -66,7 +66,8 @@ def test_wrong_species_fails_composition():
     species = b.structure.species.copy()
     species[species == b.structure.symbols.index("Ni")] = b.structure.symbols.index("Cu")
     failed, _ = _failed(b, dataclasses.replace(b.structure, species=species))
-    assert failed == {"composition"}
+    # the Ni sites now hold Cu: the sublattice count of Cu and Ni is off too
+    assert failed == {"composition", "sublattice_occupancy"}
 
 
 def test_stretched_box_fails_cell_lengths():
@@ -94,7 +95,7 @@ def test_every_check_is_computed_from_the_built_structure():
     b = _built()
     names = {c.name for c in audit(b.plan, b.structure, b.placements).checks}
     assert names == {"atoms_per_cell", "composition", "cell_lengths", "coordination",
-                     "min_distance", "space_group"}
+                     "min_distance", "space_group", "sublattice_occupancy"}
 
 
 def test_displaced_atom_lowers_the_space_group_of_a_perfect_structure():
@@ -174,7 +175,30 @@ def test_compound_with_species_swapped_between_sublattices_fails_composition():
     species[np.flatnonzero(species == o)[:3]] = mg  # three anion sites now hold Mg
     failed, _ = _failed(b, dataclasses.replace(b.structure, species=species))
     # the symmetry of the perfect crystal is broken too (spglib sees the swap)
-    assert failed == {"composition", "space_group"}
+    assert failed == {"composition", "space_group", "sublattice_occupancy"}
+
+
+def test_unrequested_antisite_pair_fails_only_the_sublattice_count():
+    """Swapping one Mg with one O keeps the composition and every neighbour count
+    (textbook geometry: rock salt's sites all have 6 neighbours whatever they hold),
+    so only the per-sublattice count (and the perfect crystal's symmetry) sees it."""
+    b = _built_compound(*ROCKSALT)
+    species = b.structure.species.copy()
+    mg, o = b.structure.symbols.index("Mg"), b.structure.symbols.index("O")
+    i, j = np.flatnonzero(species == mg)[2], np.flatnonzero(species == o)[5]
+    species[i], species[j] = o, mg
+    failed, _ = _failed(b, dataclasses.replace(b.structure, species=species))
+    assert failed == {"sublattice_occupancy", "space_group"}
+
+
+def test_atom_moved_to_another_sites_position_fails_the_sublattice_check():
+    """An atom whose coordinates are another site's (its site id unchanged) is caught
+    by the position part of the sublattice check."""
+    b = _built_compound(*ROCKSALT)
+    positions = b.structure.positions.copy()
+    positions[0] = positions[0] + [0.0, 0.0, 0.05]
+    failed, result = _failed(b, dataclasses.replace(b.structure, positions=positions))
+    assert "sublattice_occupancy" in failed
 
 
 def test_perovskite_titanium_counts_within_its_own_cutoff():

@@ -49,7 +49,7 @@ def test_cartesian_product_count_order_and_names():
     first = points[0]
     assert first.values == {"seed": 1, "defects.vacancies.fraction": 0.005}
     assert first.recipe.name == first.name and first.recipe.seed == 1
-    assert first.recipe.defects.vacancies.amount.fraction == 0.005
+    assert first.recipe.defects.vacancies[0].amount.fraction == 0.005
     assert "sweep" not in first.data
     assert all(NAME_PATTERN.match(n) for n in names)
 

@@ -99,7 +99,7 @@ def test_name_is_text_as_written():
 def test_numbers_in_exponent_form_reach_the_recipe():
     text = BASE.replace("a: 3.615", "a: 3.615e0") + "defects:\n  vacancies: {fraction: 5e-3}\n"
     recipe = parse_recipe(*parse_yaml(text))
-    assert recipe.crystal.a == 3.615 and recipe.defects.vacancies.amount.fraction == 0.005
+    assert recipe.crystal.a == 3.615 and recipe.defects.vacancies[0].amount.fraction == 0.005
 
 
 def test_on_keys_name_the_sites():
@@ -108,7 +108,7 @@ def test_on_keys_name_the_sites():
         "  vacancies: {count: 2, on: Cu}\n"
         "  substitutions: [{element: Ni, count: 1, on: Cu}]\n")
     recipe = parse_recipe(*parse_yaml(text))
-    assert recipe.defects.vacancies.on == "Cu" and recipe.defects.vacancies.amount.count == 2
+    assert recipe.defects.vacancies[0].on == "Cu" and recipe.defects.vacancies[0].amount.count == 2
     assert recipe.defects.substitutions[0].on == "Cu"
 
 
@@ -190,7 +190,7 @@ def test_readme_recipe_reference_and_sweep_blocks_load():
     recipe = parse_recipe(data, lines, "README.md")
     # the values the block shows (README.md, "Recipe reference")
     assert recipe.crystal.a == 4.05 and recipe.size.repeat == (10, 10, 10)
-    assert recipe.types == ("Al", "Mg", "Si", "H") and recipe.defects.vacancies.on == "Al"
+    assert recipe.types == ("Al", "Mg", "Si", "H") and recipe.defects.vacancies[0].on == "Al"
     assert recipe.defects.substitutions[0].amount.fraction == 0.05
     assert recipe.checks.min_distance == 1.5 and recipe.checks.physical_spacing is True
     # the sweep block stands for "crystal, size, defects as usual": those of the reference
@@ -209,7 +209,7 @@ def test_templates_load_as_text_with_their_commented_sections(lattice):
     tail = text[text.index("# defects:"):]
     uncommented = re.sub(r"^# ", "", tail, flags=re.M)
     recipe = parse_recipe(*parse_yaml(text + uncommented, "template.yaml"), "template.yaml")
-    assert recipe.defects.vacancies.amount.count == 1
+    assert recipe.defects.vacancies[0].amount.count == 1
     assert recipe.defects.interstitials[0].element == "C"
     assert recipe.checks.min_distance == 1.0
 

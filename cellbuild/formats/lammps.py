@@ -1,4 +1,6 @@
-"""LAMMPS data file writer: atom_style atomic, metal units (Angstrom, g/mol).
+"""LAMMPS data file writer: metal units (Angstrom, g/mol), atom_style atomic,
+or atom_style charge (``id type q x y z``, q in elementary charges) when the
+structure has charges; the title line and the Atoms section comment name the style.
 
 Layout::
 
@@ -44,6 +46,9 @@ from . import _text
 #: resolution at any box size (up to 1e8 A, where int64 fixed point ends).
 DECIMALS = 10
 
+#: Decimals of charges in elementary charges.
+CHARGE_DECIMALS = 10
+
 #: Fractional distance below an upper box face counted as on the lower face.
 _FACE = 2.0 ** -50
 
@@ -58,7 +63,12 @@ def write(structure: Structure, handle, title: str) -> None:
     bound = max(sum(abs(v) for v in axis) for axis in box.T.tolist())
     coordinate = _text.Fixed(_text.int_digits_for(bound, DECIMALS), DECIMALS)
     types = _text.Text(tuple(str(t + 1) for t in range(len(structure.symbols))), right=True)
-    row = _text.Row([_text.Int(len(str(structure.n_atoms))), types,
+    charges = structure.charges
+    charge = []
+    if charges is not None:
+        top = float(np.max(np.abs(charges))) if charges.size else 0.0
+        charge = [_text.Fixed(_text.int_digits_for(top, CHARGE_DECIMALS), CHARGE_DECIMALS)]
+    row = _text.Row([_text.Int(len(str(structure.n_atoms))), types, *charge,
                      coordinate, coordinate, coordinate])
     inverse = _text.inverse3(cell)
     same_frame = np.array_equal(box, cell)
@@ -66,7 +76,8 @@ def write(structure: Structure, handle, title: str) -> None:
     def columns(part: slice):
         x, y, z = wrap_into_box(structure.positions[part], cell, inverse, box, same_frame)
         ids = np.arange(part.start + 1, part.stop + 1, dtype=np.int64)
-        return [ids, structure.species[part], x, y, z]
+        q = [] if charges is None else [charges[part]]
+        return [ids, structure.species[part], *q, x, y, z]
 
     _text.write_rows(handle, row, structure.n_atoms, columns)
 
@@ -123,9 +134,10 @@ def _numbers(*values: float) -> str:
 
 def _header(structure: Structure, box: np.ndarray, title: str) -> str:
     (lx, _, _), (xy, ly, _), (xz, yz, lz) = box
+    style = "atomic" if structure.charges is None else "charge"
     lines = [
         # LAMMPS skips this line; it tells a reader the units and style assumed
-        _text.one_line(f"{title} (units metal, atom_style atomic)", "LAMMPS data file"),
+        _text.one_line(f"{title} (units metal, atom_style {style})", "LAMMPS data file"),
         "",
         f"{structure.n_atoms} atoms",
         f"{len(structure.symbols)} atom types",
@@ -139,7 +151,7 @@ def _header(structure: Structure, box: np.ndarray, title: str) -> str:
     lines += ["", "Masses", ""]
     lines += [f"{t + 1} {_mass(s)!r}  # {s}" for t, s in enumerate(structure.symbols)]
     if structure.n_atoms:  # LAMMPS wants no Atoms section without atoms
-        lines += ["", "Atoms  # atomic", ""]
+        lines += ["", f"Atoms  # {style}", ""]
     return "\n".join(lines) + "\n"
 
 

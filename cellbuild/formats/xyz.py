@@ -7,9 +7,13 @@ Layout::
     Cu   0.0000000000   0.0000000000   0.0000000000
 
 Lattice vectors and Cartesian positions in Angstrom, positions as stored in
-the structure (not wrapped: extended XYZ keeps them as given).
+the structure (not wrapped: extended XYZ keeps them as given). A structure with
+charges gets a fifth column ``initial_charges:R:1`` (elementary charges), the
+name ASE reads as the atoms' initial charges.
 """
 from __future__ import annotations
+
+import numpy as np
 
 from ..structure import Structure
 from . import _text
@@ -26,11 +30,18 @@ def write(structure: Structure, handle, title: str) -> None:
     # max |x| from max and min: no N x 3 temporary for abs()
     top = max(float(positions.max()), -float(positions.min())) if positions.size else 0.0
     coordinate = _text.Fixed(_text.int_digits_for(top, DECIMALS), DECIMALS)
-    row = _text.Row([_text.Text(structure.symbols), coordinate, coordinate, coordinate])
+    charges = structure.charges
+    charge = []
+    if charges is not None:
+        top = float(np.max(np.abs(charges))) if charges.size else 0.0
+        charge = [_text.Fixed(_text.int_digits_for(top, DECIMALS), DECIMALS)]
+    row = _text.Row([_text.Text(structure.symbols), coordinate, coordinate, coordinate,
+                     *charge])
 
     def columns(part: slice):
         xyz = positions[part]
-        return [structure.species[part], xyz[:, 0], xyz[:, 1], xyz[:, 2]]
+        q = [] if charges is None else [charges[part]]
+        return [structure.species[part], xyz[:, 0], xyz[:, 1], xyz[:, 2], *q]
 
     _text.write_rows(handle, row, structure.n_atoms, columns)
 
@@ -40,6 +51,8 @@ def _header(structure: Structure, title: str) -> str:
     # Keep the title a plain quoted string for extended-XYZ parsers: no quotes
     # or backslashes inside.
     name = _text.one_line(title, "").replace('"', "'").replace("\\", "/")
-    comment = (f'Lattice="{lattice}" Properties=species:S:1:pos:R:3 pbc="T T T"'
+    properties = "species:S:1:pos:R:3" + (":initial_charges:R:1" if structure.charges is not None
+                                          else "")
+    comment = (f'Lattice="{lattice}" Properties={properties} pbc="T T T"'
                + (f' title="{name}"' if name else ""))
     return f"{structure.n_atoms}\n{comment}\n"

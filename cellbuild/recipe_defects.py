@@ -1,0 +1,168 @@
+"""The recipe's defect requests as frozen types that cannot hold an invalid value.
+
+Targets (``on``, an antisite ``pair``) are names as written: a sublattice
+label, an element or an interstitial kind. Whether the crystal has them is
+known only once the crystal is resolved (a CIF's labels come from the file),
+so :mod:`cellbuild.defect_plan` resolves and checks them, once, for the plan.
+Errors name the key inside the request (``count``, ``on``); the parser
+prefixes the request's own key (``defects.substitutions[0]``).
+"""
+from __future__ import annotations
+
+from dataclasses import dataclass, field
+
+from . import recipe_values as v
+
+#: Longest target name accepted (CIF site labels are short).
+MAX_TARGET = 64
+
+
+def target(value, key: str) -> str:
+    """A target name: non-empty text without spaces, at most ``MAX_TARGET`` characters."""
+    name = v.text(value, key)
+    if len(name) > MAX_TARGET or any(c.isspace() for c in name):
+        v.fail(key, value, "is not a sublattice label, element or interstitial site",
+               f"give a name of at most {MAX_TARGET} characters without spaces")
+    return name
+
+
+@dataclass(frozen=True)
+class Amount:
+    """A defect amount: an exact ``count`` or a ``fraction`` (0 to 1) of the sites of ``on``.
+
+    Errors name ``count``/``fraction``; the parser prefixes the defect's key."""
+
+    count: int | None = None
+    fraction: float | None = None
+
+    def __post_init__(self) -> None:
+        which = v.exclusive(self, ("count", "fraction"), "", required=True)
+        if which == "count":
+            v.store(self, "count", v.integer(self.count, "count"))
+        else:
+            v.store(self, "fraction", v.fraction(self.fraction, "fraction"))
+
+
+def _is_amount(value, key: str) -> None:
+    if not isinstance(value, Amount):
+        v.fail(key, value, f"must be an Amount, not {v.kind(value)}")
+
+
+@dataclass(frozen=True)
+class Vacancies:
+    """Vacancies on the sites of ``on`` (a sublattice label or an element)."""
+
+    amount: Amount
+    on: str
+
+    def __post_init__(self) -> None:
+        _is_amount(self.amount, "amount")
+        target(self.on, "on")
+
+
+@dataclass(frozen=True)
+class Substitution:
+    """``element`` on sites of ``on`` (a sublattice label or an element)."""
+
+    element: str
+    amount: Amount
+    on: str
+
+    def __post_init__(self) -> None:
+        v.element(self.element, "element")
+        _is_amount(self.amount, "amount")
+        target(self.on, "on")
+        if self.element == self.on:
+            v.fail("element", self.element, f"substitutes `{self.on}` by itself")
+
+
+@dataclass(frozen=True)
+class Interstitial:
+    """``element`` on interstitial sites of kind ``site`` (checked against the lattice
+    by the recipe)."""
+
+    element: str
+    site: str
+    amount: Amount
+
+    def __post_init__(self) -> None:
+        v.element(self.element, "element")
+        v.text(self.site, "site")
+        _is_amount(self.amount, "amount")
+
+
+@dataclass(frozen=True)
+class Antisite:
+    """``count`` swaps of an atom on ``pair[0]`` with one on ``pair[1]`` (sublattice
+    labels or elements holding different elements); the composition is unchanged."""
+
+    pair: tuple[str, str]
+    count: int
+
+    def __post_init__(self) -> None:
+        message = "must be a list of two sublattice labels or elements, such as [Ga, As]"
+        items = v.sequence(self.pair, "pair", message)
+        if len(items) != 2:
+            v.fail("pair", list(items), message)
+        pair = tuple(target(x, f"pair[{i}]") for i, x in enumerate(items))
+        if pair[0] == pair[1]:
+            v.fail("pair", list(pair), "names the same sites twice",
+                   "name two sublattices or elements")
+        v.store(self, "pair", pair)
+        v.store(self, "count", v.integer(self.count, "count"))
+
+
+@dataclass(frozen=True)
+class Schottky:
+    """``count`` Schottky defects: each one vacancy set in the stoichiometric
+    ratio of the sublattices (MgO: one Mg and one O; SrTiO3: Sr, Ti and three O)."""
+
+    count: int
+
+    def __post_init__(self) -> None:
+        v.store(self, "count", v.integer(self.count, "count"))
+
+
+@dataclass(frozen=True)
+class Defects:
+    """Defect requests; ``min_separation`` in Angstrom between any two defects.
+
+    ``vacancies`` is one :class:`Vacancies` (key ``defects.vacancies``) or a
+    list of them (keys ``defects.vacancies[i]``); it is stored as a tuple.
+    """
+
+    vacancies: tuple[Vacancies, ...] | Vacancies | None = ()
+    substitutions: tuple[Substitution, ...] = ()
+    interstitials: tuple[Interstitial, ...] = ()
+    min_separation: float | None = None
+    antisites: tuple[Antisite, ...] = ()
+    schottky: Schottky | None = None
+    vacancies_listed: bool = field(default=True, init=False, repr=False, compare=False)
+
+    def __post_init__(self) -> None:
+        if self.vacancies is None or isinstance(self.vacancies, Vacancies):
+            v.store(self, "vacancies_listed", False)
+            v.store(self, "vacancies", () if self.vacancies is None else (self.vacancies,))
+        for name, cls in (("vacancies", Vacancies), ("substitutions", Substitution),
+                          ("interstitials", Interstitial), ("antisites", Antisite)):
+            items = v.sequence(getattr(self, name), f"defects.{name}", "must be a list")
+            for i, item in enumerate(items):
+                if not isinstance(item, cls):
+                    v.fail(f"defects.{name}[{i}]", item,
+                           f"must be a {cls.__name__}, not {v.kind(item)}")
+            v.store(self, name, items)
+        if self.schottky is not None and not isinstance(self.schottky, Schottky):
+            v.fail("defects.schottky", self.schottky,
+                   f"must be a Schottky, not {v.kind(self.schottky)}")
+        if self.min_separation is not None:
+            v.store(self, "min_separation",
+                    v.number(self.min_separation, "defects.min_separation"))
+
+    def vacancy_key(self, i: int) -> str:
+        """The recipe key of vacancy request ``i``."""
+        return f"defects.vacancies[{i}]" if self.vacancies_listed else "defects.vacancies"
+
+    @property
+    def any(self) -> bool:
+        return bool(self.vacancies or self.substitutions or self.interstitials
+                    or self.antisites or self.schottky)
