@@ -171,7 +171,9 @@ def _ideal_crystal(crystal: Crystal) -> dict:
     cell = replicate(crystal, (1, 1, 1), symbols=tuple(dict.fromkeys(crystal.elements)))
     d_nn, _, _ = neighbours.min_distance(cell.cell, cell.positions, workers=1)
     counts = counts_within(cell, crystal, workers=1)
-    packing = cell.n_atoms * (4.0 / 3.0) * math.pi * (d_nn / 2.0) ** 3 / cell.volume
+    # touching equal spheres: a fact of one-element crystals only (ions differ in size)
+    packing = (cell.n_atoms * (4.0 / 3.0) * math.pi * (d_nn / 2.0) ** 3 / cell.volume
+               if len(set(crystal.elements)) == 1 else None)
     symbol, number = spacegroup(cell)
     return {
         "atoms_per_cell": cell.n_atoms,
@@ -343,9 +345,19 @@ def _cell_check(plan: Plan, cell: np.ndarray) -> Check:
     expected = plan.crystal.supercell(plan.repeat)
     ok = bool(np.allclose(cell, expected, rtol=0, atol=1e-9 * plan.lattice_constant))
     lengths = ", ".join(f"{x:.6f}" for x in np.linalg.norm(cell, axis=1))
+    if _is_cubic(plan.crystal.cell):  # the wording of the cubic case, kept for its reports
+        return Check("cell_lengths", ok,
+                     f"box {lengths} Angstrom, orthogonal: {ok}; expected repeat x a = "
+                     + " x ".join(str(n) for n in plan.repeat) + f" x {plan.lattice_constant:.6f}")
+    want = ", ".join(f"{x:.6f}" for x in np.linalg.norm(expected, axis=1))
     return Check("cell_lengths", ok,
-                 f"box {lengths} Angstrom, orthogonal: {ok}; expected repeat x a = "
-                 + " x ".join(str(n) for n in plan.repeat) + f" x {plan.lattice_constant:.6f}")
+                 f"box vectors of length {lengths} Angstrom; expected repeat "
+                 + " x ".join(str(n) for n in plan.repeat)
+                 + f" times the conventional cell ({want}), vectors equal: {ok}")
+
+
+def _is_cubic(cell: np.ndarray) -> bool:
+    return bool(np.all(cell == np.diag(np.diag(cell))) and np.all(np.diag(cell) == cell[0, 0]))
 
 
 def _density(structure: Structure) -> float:

@@ -19,7 +19,7 @@ import numpy as np
 from .errors import InputError
 from .crystal import Crystal, resolve_crystal
 from .defect_plan import count_defects
-from .lattices import touching_radius_factor
+from .lattices import LATTICES, touching_radius_factor
 from .recipe import Recipe
 from .structure import Structure
 
@@ -90,29 +90,50 @@ def lattice_constant(recipe: Recipe) -> tuple[float, str]:
     if crystal.a is not None:
         return crystal.a, "given (crystal.a)"
     if crystal.density is not None:
-        # g/mol per conventional cell; every table cell is cubic (volume a^3)
-        mass = sum(standard_atomic_weight(e) for e in _basis_elements(crystal))
+        unit = _unit_crystal(recipe)  # g/mol per conventional cell over its volume in a^3
+        mass = sum(standard_atomic_weight(e) for e in unit.elements)
         volume_cm3 = mass / (AVOGADRO * crystal.density)
         weights = "weights" if len(crystal.elements()) > 1 else "weight"
-        return (volume_cm3 / ANGSTROM3_TO_CM3) ** (1.0 / 3.0), (
+        return (volume_cm3 / ANGSTROM3_TO_CM3 / unit.volume) ** (1.0 / 3.0), (
             f"from density {crystal.density} g/cm^3 and the standard atomic {weights}")
     if crystal.radius is not None:
-        return crystal.radius / touching_radius_factor(crystal.lattice), (
+        factor = (touching_radius_factor(crystal.lattice) if crystal.lattice in LATTICES
+                  else 0.5 * _unit_crystal(recipe).nearest)
+        return crystal.radius / factor, (
             f"from touching spheres of radius {crystal.radius} Angstrom")
     return _reference_constant(recipe), "reference value of ASE's data table"
 
 
-def _basis_elements(crystal) -> tuple[str, ...]:
-    """The element on each basis site of the recipe's lattice or prototype (from the
-    crystal resolved at a = 1, cached; the basis does not depend on a)."""
-    return resolve_crystal(crystal.lattice, 1.0, crystal.species).elements
+def crystal_parameters(recipe: Recipe) -> tuple[tuple[str, float], ...]:
+    """A prototype's internal parameters: as given (``c`` as ``c_over_a``), else,
+    for hcp built at ASE's reference lattice constant, ASE's reference c/a too;
+    the table's defaults (ideal c/a) for the rest."""
+    crystal = recipe.crystal
+    given = crystal.parameters()
+    if crystal.lattice == "hcp" and not given and crystal.a is None \
+            and crystal.density is None and crystal.radius is None:
+        state = _reference_state(crystal.element)
+        if state.get("symmetry") == "hcp" and "c/a" in state:
+            return (("c_over_a", float(state["c/a"])),)
+    return given
+
+
+def _unit_crystal(recipe: Recipe) -> Crystal:
+    """The recipe's crystal at a = 1 (cached): the basis elements, the cell volume
+    in units of a^3 and the nearest distance in units of a."""
+    crystal = recipe.crystal
+    return resolve_crystal(crystal.lattice, 1.0, crystal.species, crystal_parameters(recipe))
+
+
+def _reference_state(element: str) -> dict:
+    from ase.data import atomic_numbers, reference_states
+
+    return reference_states[atomic_numbers[element]] or {}
 
 
 def _reference_constant(recipe: Recipe) -> float:
-    from ase.data import atomic_numbers, reference_states
-
     crystal = recipe.crystal
-    state = reference_states[atomic_numbers[crystal.element]] or {}
+    state = _reference_state(crystal.element)
     symmetry = state.get("symmetry")
     if symmetry != crystal.lattice or "a" not in state:
         found = f"lists {crystal.element} as {symmetry}" if symmetry else f"has no crystal structure for {crystal.element}"
@@ -184,7 +205,8 @@ def resolve(recipe: Recipe, *, strict: bool = False) -> Plan:
             f"({MIN_CONSTANT} to {MAX_CONSTANT:g})", key=_constant_key(recipe),
             value=_constant_value(recipe, a), hint="check the units (Angstrom, g/cm^3)",
             file=recipe.source)
-    crystal = resolve_crystal(recipe.crystal.lattice, a, recipe.crystal.species)
+    crystal = resolve_crystal(recipe.crystal.lattice, a, recipe.crystal.species,
+                              crystal_parameters(recipe))
     warnings = list(_spacing_warnings(recipe, crystal))
     if not 1.0 <= a <= 20.0:
         message = f"lattice constant {a:.4g} Angstrom is outside the plausible range 1 to 20"

@@ -11,6 +11,7 @@ by name again.
 """
 from __future__ import annotations
 
+import dataclasses
 import math
 from dataclasses import dataclass
 from functools import lru_cache
@@ -52,6 +53,8 @@ class Crystal:
         site_cutoff: audit cutoff of each basis site (Angstrom): midway between
             its sublattice's first shell and the next distance, so perovskite's
             B sees its 6 X at 0.5 a and A its 12 X at 0.707 a.
+        parameters: internal parameters of a prototype as (name, value) pairs
+            (hcp ``c_over_a``, spinel ``u``); empty for the cubic lattices.
     """
 
     prototype: str
@@ -69,6 +72,7 @@ class Crystal:
     offsets: tuple[tuple[int, tuple[int, int, int], int], ...]
     first_shells: dict[str, FirstShell]
     site_cutoff: tuple[float, ...]
+    parameters: tuple[tuple[str, float], ...] = ()
 
     @property
     def n_basis(self) -> int:
@@ -134,21 +138,25 @@ def _is_diagonal(m: np.ndarray) -> bool:
     return not np.any(m - np.diag(np.diag(m)))
 
 
-def resolve_crystal(prototype: str, a: float, species: tuple[tuple[str, str], ...]) -> Crystal:
+def resolve_crystal(prototype: str, a: float, species: tuple[tuple[str, str], ...],
+                    parameters: tuple[tuple[str, float], ...] = ()) -> Crystal:
     """The :class:`Crystal` of table entry ``prototype`` (a lattice of
     :mod:`cellbuild.lattices` or a compound of :mod:`cellbuild.prototypes`) with
-    lattice constant ``a`` (Angstrom) and ``species`` as (sublattice label,
-    element) pairs.
+    lattice constant ``a`` (Angstrom), ``species`` as (sublattice label, element)
+    pairs and a prototype's internal ``parameters`` as (name, value) pairs
+    (defaults for those left out).
 
     Cached: a library of many structures of one crystal resolves it once per process.
     """
-    return _resolve(prototype, float(a), tuple(species))
+    return _resolve(prototype, float(a), tuple(species),
+                    tuple((k, float(x)) for k, x in parameters))
 
 
 @lru_cache(maxsize=256)
-def _resolve(prototype: str, a: float, species: tuple[tuple[str, str], ...]) -> Crystal:
+def _resolve(prototype: str, a: float, species: tuple[tuple[str, str], ...],
+             parameters: tuple[tuple[str, float], ...]) -> Crystal:
     if prototype in PROTOTYPES:
-        return _resolve_compound(prototype, a, species)
+        return _resolve_compound(prototype, a, species, dict(parameters))
     lat = LATTICES[prototype]
     cell = np.array(lat.cell, dtype=np.float64) * a
     basis = lat.basis_array()
@@ -161,17 +169,22 @@ def _resolve(prototype: str, a: float, species: tuple[tuple[str, str], ...]) -> 
                     (cutoff,) * lat.n_basis, unit)
 
 
-def _resolve_compound(prototype: str, a: float, species) -> Crystal:
+def _resolve_compound(prototype: str, a: float, species, parameters: dict) -> Crystal:
     proto = PROTOTYPES[prototype]
-    cell = np.array(proto.cell, dtype=np.float64) * a
-    basis, labels = prototype_basis(proto)
-    unit = first_shells(proto.cell, basis, labels)
+    parameters = {**proto.parameters, **parameters}
+    unit_cell = proto.cell_rows(**parameters)
+    cell = np.array(unit_cell, dtype=np.float64) * a
+    basis, labels = prototype_basis(proto, **parameters)
+    unit = first_shells(unit_cell, basis, labels)
     # each sublattice's cutoff midway between its first shell and the next distance
     site_cutoff = tuple(0.5 * (unit[lb].outer + unit[lb].next_distance) * a for lb in labels)
     closest = min(unit.values(), key=lambda sh: sh.distance)  # first in table order on ties
     scaled = Shells((closest.distance * a,), (closest.coordination,))
-    return _crystal(prototype, proto.title, a, cell, basis, labels, dict(species), {},
-                    proto.space_group, scaled, max(site_cutoff), site_cutoff, unit)
+    return dataclasses.replace(
+        _crystal(prototype, proto.title, a, cell, basis, labels, dict(species),
+                 proto.interstitials, proto.space_group, scaled, max(site_cutoff), site_cutoff,
+                 unit),
+        parameters=tuple(sorted(parameters.items())))
 
 
 def _crystal(prototype, title, a, cell, basis, labels, on, interstitials, space_group,

@@ -18,6 +18,7 @@ def describe(plan: Plan) -> dict:
         "lattice": recipe.crystal.lattice,
         "element": recipe.crystal.element,
         "species": dict(recipe.crystal.species),
+        "parameters": dict(plan.crystal.parameters),
         "lattice_constant": plan.lattice_constant,
         "lattice_constant_source": plan.lattice_constant_source,
         "repeat": list(plan.repeat),

@@ -9,8 +9,8 @@ cell metric, so non-cubic cells measure right.
 
 Positions are the standard settings of the International Tables for
 Crystallography, Vol. A (spinel and C15 in origin choice 2, centre at -3m).
-Recipes name the cubic entries (:mod:`cellbuild.recipe_lattices`); hcp waits
-for a ``c`` key. The table is held against spglib, textbook coordination, ASE's
+Recipes name every entry (:mod:`cellbuild.recipe_lattices`); hcp takes ``c``
+or ``c_over_a`` for its cell, spinel ``u`` for its oxygen sites. The table is held against spglib, textbook coordination, ASE's
 ``bulk`` and handbook densities in ``tests/test_prototypes.py``.
 """
 from __future__ import annotations
@@ -18,6 +18,7 @@ from __future__ import annotations
 import math
 from dataclasses import dataclass, field
 from itertools import product
+from typing import Callable
 
 import numpy as np
 
@@ -59,13 +60,19 @@ class Prototype:
         name: table key (``rocksalt``, ...).
         title: human name, with the Strukturbericht symbol where there is one.
         sublattices: label -> fractional sites of that sublattice in the cell
-            (a function of the internal parameters for spinel).
+            (a function taking every internal parameter as a keyword, for spinel).
         space_group: (Hermann-Mauguin symbol, International Tables number).
         example: a real compound, sublattice label -> element.
         cell: conventional cell, rows in units of ``a``.
         parameters: internal parameters and their defaults (spinel ``u``).
         example_a: room-temperature lattice constant of ``example`` (Angstrom,
             from memory), for the starter recipe.
+        interstitials: site kind -> fractional sites of that kind in the cell
+            (empty in the perfect crystal).
+        cell_of: the cell as a function of the internal parameters, when they
+            change it (hcp's ``c_over_a``); ``cell`` is then the default's.
+        example_parameters: internal parameters of ``example`` for the starter
+            recipe (from memory), where they differ from the defaults.
     """
 
     name: str
@@ -76,6 +83,19 @@ class Prototype:
     cell: tuple[Site, Site, Site] = _CUBIC
     parameters: dict[str, float] = field(default_factory=dict)
     example_a: float | None = None
+    interstitials: dict[str, tuple[Site, ...]] = field(default_factory=dict)
+    cell_of: Callable[..., tuple[Site, Site, Site]] | None = None
+    example_parameters: dict[str, float] = field(default_factory=dict)
+
+    @property
+    def n_sublattices(self) -> int:
+        return len(self.sublattices)
+
+    def cell_rows(self, **params: float) -> tuple[Site, Site, Site]:
+        """The conventional cell (rows, units of ``a``) for these internal parameters."""
+        if self.cell_of is None:
+            return self.cell
+        return self.cell_of(**{**self.parameters, **params})
 
     def sites(self, **params: float) -> dict[str, tuple[Site, ...]]:
         """Sublattice label -> sites, internal parameters filled in from defaults."""
@@ -95,18 +115,27 @@ def _hcp_cell(c_over_a: float) -> tuple[Site, Site, Site]:
 IDEAL_C_OVER_A = math.sqrt(8.0 / 3.0)
 
 PROTOTYPES: dict[str, Prototype] = {p.name: p for p in (
+    # interstitial sites (textbook geometry): rock salt's empty tetrahedra, each
+    # between 4 A and 4 B at sqrt(3)/4 a; zinc blende's empty tetrahedra, 4 A
+    # (tetrahedral-A) or 4 B (tetrahedral-B) at sqrt(3)/4 a with 6 of the other
+    # sublattice at a/2; fluorite's empty cube centres (the octahedral site of
+    # UO2), 8 X at sqrt(3)/4 a and 6 A at a/2
     Prototype("rocksalt", "rock salt (B1)",
               {"A": _FCC, "B": _fcc_plus((0.5, 0.0, 0.0))},
-              ("Fm-3m", 225), {"A": "Mg", "B": "O"}, example_a=4.212),
+              ("Fm-3m", 225), {"A": "Mg", "B": "O"}, example_a=4.212,
+              interstitials={"tetrahedral": _wrap(product((0.25, 0.75), repeat=3))}),
     Prototype("cesium-chloride", "cesium chloride (B2)",
               {"A": ((0.0, 0.0, 0.0),), "B": ((0.5, 0.5, 0.5),)},
               ("Pm-3m", 221), {"A": "Cs", "B": "Cl"}, example_a=4.12),
     Prototype("zincblende", "zinc blende (B3)",
               {"A": _FCC, "B": _fcc_plus((0.25, 0.25, 0.25))},
-              ("F-43m", 216), {"A": "Ga", "B": "As"}, example_a=5.653),
+              ("F-43m", 216), {"A": "Ga", "B": "As"}, example_a=5.653,
+              interstitials={"tetrahedral-A": _fcc_plus((0.75, 0.75, 0.75)),
+                             "tetrahedral-B": _fcc_plus((0.5, 0.5, 0.5))}),
     Prototype("fluorite", "fluorite (C1)",
               {"A": _FCC, "X": _wrap(product((0.25, 0.75), repeat=3))},
-              ("Fm-3m", 225), {"A": "U", "X": "O"}, example_a=5.47),
+              ("Fm-3m", 225), {"A": "U", "X": "O"}, example_a=5.47,
+              interstitials={"octahedral": _fcc_plus((0.5, 0.5, 0.5))}),
     Prototype("perovskite", "cubic perovskite (E2_1)",
               {"A": ((0.0, 0.0, 0.0),), "B": ((0.5, 0.5, 0.5),),
                "X": ((0.5, 0.5, 0.0), (0.5, 0.0, 0.5), (0.0, 0.5, 0.5))},
@@ -142,12 +171,23 @@ PROTOTYPES: dict[str, Prototype] = {p.name: p for p in (
               {"A": _fcc_plus((0.125, 0.125, 0.125), (0.875, 0.875, 0.875)),
                "B": _fcc_plus((0.5, 0.5, 0.5), (0.25, 0.25, 0.5), (0.25, 0.5, 0.25),
                               (0.5, 0.25, 0.25)),
-               "X": lambda u: _spinel_oxygen(u)},
+               "X": lambda u, **_: _spinel_oxygen(u)},
               ("Fd-3m", 227), {"A": "Mg", "B": "Al", "X": "O"}, parameters={"u": 0.2624},
               example_a=8.08),
+    # atoms at 2c (1/3, 2/3, 1/4); octahedral holes at 2a (0, 0, 0), tetrahedral
+    # holes at 4f (1/3, 2/3, z) with z = 1/4 +- 3/8 and their inversions, the
+    # positions of touching spheres (textbook geometry; kept for any c/a)
     Prototype("hcp", "hexagonal close-packed (A3)",
               {"A": ((1.0 / 3.0, 2.0 / 3.0, 0.25), (2.0 / 3.0, 1.0 / 3.0, 0.75))},
-              ("P6_3/mmc", 194), {"A": "Ti"}, cell=_hcp_cell(IDEAL_C_OVER_A), example_a=2.95),
+              ("P6_3/mmc", 194), {"A": "Ti"}, cell=_hcp_cell(IDEAL_C_OVER_A), example_a=2.95,
+              parameters={"c_over_a": IDEAL_C_OVER_A},
+              interstitials={"octahedral": ((0.0, 0.0, 0.0), (0.0, 0.0, 0.5)),
+                             "tetrahedral": ((1.0 / 3.0, 2.0 / 3.0, 0.625),
+                                             (1.0 / 3.0, 2.0 / 3.0, 0.875),
+                                             (2.0 / 3.0, 1.0 / 3.0, 0.125),
+                                             (2.0 / 3.0, 1.0 / 3.0, 0.375))},
+              cell_of=lambda c_over_a, **_: _hcp_cell(c_over_a),
+              example_parameters={"c_over_a": 1.588}),
 )}
 
 
@@ -218,6 +258,6 @@ def density(proto: Prototype, a: float, species: dict[str, str], **params: float
 
     _, labels = basis(proto, **params)
     mass = sum(float(atomic_masses[atomic_numbers[species[label]]]) for label in labels)
-    volume = abs(float(np.linalg.det(np.asarray(proto.cell) * a)))  # Angstrom^3
+    volume = abs(float(np.linalg.det(np.asarray(proto.cell_rows(**params)) * a)))  # Angstrom^3
     avogadro = 6.02214076e23  # mol^-1, exact (SI 2019)
     return mass / avogadro / (volume * 1e-24)

@@ -64,6 +64,8 @@ class Crystal:
     A compound prototype takes ``species`` (sublattice label -> element; stored
     as pairs in the prototype's sublattice order) instead of ``element``, which
     is then set to the element of the first sublattice (the host for defaults).
+    A prototype of one sublattice (hcp) takes either. Internal parameters:
+    ``c`` (Angstrom, needs ``a``) or ``c_over_a`` for hcp, ``u`` for spinel.
     """
 
     element: str | None
@@ -72,11 +74,15 @@ class Crystal:
     density: float | None = None
     radius: float | None = None
     species: tuple[tuple[str, str], ...] | None = None
+    c: float | None = None
+    c_over_a: float | None = None
+    u: float | None = None
 
     def __post_init__(self) -> None:
         if v.text(self.lattice, "crystal.lattice") not in KNOWN_LATTICES:
             v.fail("crystal.lattice", self.lattice, "is not a known lattice",
                    f"known lattices: {', '.join(KNOWN_LATTICES)}")
+        proto = PROTOTYPES.get(self.lattice)
         if self.lattice in LATTICES:
             if self.species is not None:
                 v.fail("crystal.species", dict(self.species),
@@ -84,18 +90,53 @@ class Crystal:
                        "give crystal.element")
             v.element(self.element, "crystal.element")
             _set(self, "species", (("A", self.element),))
+        elif proto.n_sublattices == 1 and self.species is None:
+            v.element(self.element, "crystal.element")
+            _set(self, "species", ((next(iter(proto.sublattices)), self.element),))
         else:
             _set(self, "species", checked_species(self.lattice, self.species, self.element))
             _set(self, "element", self.species[0][1])
         which = _exclusive(self, ("a", "density", "radius"), "crystal", required=False)
         if which:
             _set(self, which, v.number(getattr(self, which), f"crystal.{which}"))
-        if self.lattice in PROTOTYPES and which == "radius":
+        compound = proto is not None and proto.n_sublattices > 1
+        if compound and which == "radius":
             v.fail("crystal.radius", self.radius, f"has no single meaning for {self.lattice}",
                    "give crystal.a (Angstrom) or crystal.density (g/cm^3)")
-        if self.lattice in PROTOTYPES and which is None:
+        if compound and which is None:
             raise InputError(f"is required for {self.lattice}", key="crystal.a",
                              hint="give crystal.a (Angstrom) or crystal.density (g/cm^3)")
+        self._check_parameters(proto)
+
+    def _check_parameters(self, proto) -> None:
+        allowed = proto.parameters if proto is not None else {}
+        for key in ("c", "c_over_a", "u"):
+            value = getattr(self, key)
+            if value is None:
+                continue
+            name = "c_over_a" if key == "c" else key
+            if name not in allowed:
+                v.fail(f"crystal.{key}", value, f"is not a parameter of {self.lattice}",
+                       "c and c_over_a are for hcp, u for spinel")
+            _set(self, key, v.number(value, f"crystal.{key}"))
+        _exclusive(self, ("c", "c_over_a"), "crystal", required=False)
+        if self.c is not None and self.a is None:
+            v.fail("crystal.c", self.c, "needs crystal.a beside it",
+                   "give crystal.a, or c_over_a with density or radius")
+        if self.u is not None and not 0.0 < self.u < 0.5:
+            v.fail("crystal.u", self.u, "must lie between 0 and 0.5",
+                   "spinel's oxygen parameter is near 0.26 (0.25 is ideal packing)")
+
+    def parameters(self) -> tuple[tuple[str, float], ...]:
+        """Internal parameters given, as (name, value): c becomes c_over_a."""
+        out = []
+        if self.c is not None:
+            out.append(("c_over_a", self.c / self.a))
+        if self.c_over_a is not None:
+            out.append(("c_over_a", self.c_over_a))
+        if self.u is not None:
+            out.append(("u", self.u))
+        return tuple(out)
 
     def elements(self) -> tuple[str, ...]:
         """The element of each sublattice, without repeats, in sublattice order."""
@@ -331,7 +372,7 @@ class _Checker:
 
 TOP_KEYS = ("name", "crystal", "size", "seed", "outputs", "defects", "types", "checks",
             "charges", "sweep")
-CRYSTAL_KEYS = ("element", "lattice", "a", "density", "radius", "species")
+CRYSTAL_KEYS = ("element", "lattice", "a", "density", "radius", "species", "c", "c_over_a", "u")
 SIZE_KEYS = ("repeat", "atoms", "min_length")
 DEFECT_KEYS = ("vacancies", "schottky", "substitutions", "antisites", "interstitials",
                "min_separation")
@@ -384,7 +425,8 @@ def _crystal(c: _Checker, value: Any) -> Crystal:
     c.known_keys(data, CRYSTAL_KEYS, "crystal")
     if "lattice" not in data:
         c.fail_missing("crystal.lattice", "is required")
-    one_species = not isinstance(data["lattice"], str) or data["lattice"] in LATTICES
+    one_species = not isinstance(data["lattice"], str) or data["lattice"] in LATTICES or (
+        data["lattice"] in PROTOTYPES and PROTOTYPES[data["lattice"]].n_sublattices == 1)
     if "element" not in data and "species" not in data and one_species:
         c.fail_missing("crystal.element", "is required")
     fields = dict(data)

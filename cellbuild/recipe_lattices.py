@@ -6,9 +6,8 @@ from . import recipe_values as v
 from .lattices import LATTICES
 from .prototypes import PROTOTYPES
 
-#: Compound prototypes a recipe can name: the cubic ones (hcp needs `c`, not yet read).
-RECIPE_PROTOTYPES = tuple(name for name, p in PROTOTYPES.items()
-                          if p.cell == ((1.0, 0.0, 0.0), (0.0, 1.0, 0.0), (0.0, 0.0, 1.0)))
+#: Prototypes a recipe can name: every entry of the table.
+RECIPE_PROTOTYPES = tuple(PROTOTYPES)
 KNOWN_LATTICES = (*LATTICES, *RECIPE_PROTOTYPES)
 
 
@@ -33,8 +32,10 @@ def checked_species(lattice: str, species, element) -> tuple[tuple[str, str], ..
 
 
 def interstitial_sites(lattice: str) -> dict:
-    """Interstitial site kinds of ``lattice`` (none yet for compound prototypes)."""
-    return LATTICES[lattice].interstitials if lattice in LATTICES else {}
+    """Interstitial site kinds of ``lattice`` (a lattice or a prototype)."""
+    if lattice in LATTICES:
+        return LATTICES[lattice].interstitials
+    return PROTOTYPES[lattice].interstitials if lattice in PROTOTYPES else {}
 
 
 def sites_hint(lattice: str, sites) -> str:

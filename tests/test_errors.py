@@ -42,7 +42,7 @@ CASES = [
     ("missing-size-choice", GOOD.replace("repeat: [2, 2, 2]", "{}").replace("size:\n  {}", "size: {}"),
      ["size", "repeat, atoms, min_length"]),
     ("unknown-element", GOOD.replace("element: Cu", "element: Cx"), ["crystal.element", "'Cx'"]),
-    ("unknown-lattice", GOOD.replace("lattice: fcc", "lattice: hcp"),
+    ("unknown-lattice", GOOD.replace("lattice: fcc", "lattice: hpc"),
      ["crystal.lattice", "sc, bcc, fcc, diamond"]),
     ("unknown-format", GOOD.replace("xyz]", "pdb]"), ["outputs[1]", "lammps-data, cif, xyz, poscar"]),
     ("negative-a", GOOD.replace("a: 3.615", "a: -3.615"), ["crystal.a", "-3.615"]),

@@ -20,7 +20,7 @@ from lammps_run import potential, run_lammps
 COORDINATION = """\
 clear
 units metal
-atom_style atomic
+atom_style {style}
 boundary p p p
 read_data {data}
 pair_style zero {pair_cutoff}
@@ -40,10 +40,16 @@ def _histogram(dump) -> dict:
     return {str(k): int(v) for k, v in enumerate(np.bincount(counts, minlength=1)) if v}
 
 
+def _style(path) -> str:
+    """The atom style our title line names (LAMMPS needs it in the input script)."""
+    with open(path) as handle:
+        return "charge" if "atom_style charge" in handle.readline() else "atomic"
+
+
 def _lammps_histograms(entries, tmp_path) -> list[dict]:
     """One LAMMPS run over many data files: the coordination histogram of each."""
     script = "".join(COORDINATION.format(data=path, cutoff=cutoff, pair_cutoff=cutoff + 0.5,
-                                         dump=tmp_path / f"cn{i}.dump")
+                                         dump=tmp_path / f"cn{i}.dump", style=_style(path))
                      for i, (path, cutoff) in enumerate(entries))
     run_lammps(script, tmp_path)
     return [_histogram(tmp_path / f"cn{i}.dump") for i in range(len(entries))]

@@ -58,7 +58,7 @@ def test_two_exclusive_keys():
     ("repeat: [10, 10, 10]", "repeat: [10, 10]", "size.repeat"),
     ("repeat: [10, 10, 10]", "repeat: [10, 0, 10]", "size.repeat[1]"),
     ("element: Al", "element: Xx", "crystal.element"),
-    ("lattice: fcc", "lattice: hcp", "crystal.lattice"),
+    ("lattice: fcc", "lattice: hpc", "crystal.lattice"),
     ("xyz, poscar]", "xyz, pdb]", "outputs[3]"),
     ("name: al-host-perfect", "name: ../escape", "name"),
     ("name: al-host-perfect", "name: /abs/path", "name"),
@@ -71,7 +71,7 @@ def test_bad_values_name_key_and_value(old, new, key):
 
 
 def test_unknown_lattice_lists_known():
-    assert "sc, bcc, fcc, diamond" in str(_error(GOOD.replace("lattice: fcc", "lattice: hcp")))
+    assert "sc, bcc, fcc, diamond" in str(_error(GOOD.replace("lattice: fcc", "lattice: hpc")))
 
 
 def test_unknown_format_lists_known():
@@ -189,7 +189,7 @@ def _invalid_constructions():
         ("crystal", lambda: _cu(crystal={"element": "Cu"})),
         ("crystal.element", lambda: Crystal("Xx", "fcc")),
         ("crystal.element", lambda: Crystal("cu", "fcc")),
-        ("crystal.lattice", lambda: Crystal("Cu", "hcp")),
+        ("crystal.lattice", lambda: Crystal("Cu", "hpc")),
         ("crystal.a", lambda: Crystal("Cu", "fcc", a=-1.0)),
         ("crystal.a", lambda: Crystal("Cu", "fcc", a=float("nan"))),
         ("crystal.a", lambda: Crystal("Cu", "fcc", a="3.6")),
