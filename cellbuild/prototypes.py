@@ -73,6 +73,8 @@ class Prototype:
             change it (hcp's ``c_over_a``); ``cell`` is then the default's.
         example_parameters: internal parameters of ``example`` for the starter
             recipe (from memory), where they differ from the defaults.
+        example_charges: formal oxidation states of an ionic ``example`` (common
+            practice), for the starter recipe's commented ``charges``.
     """
 
     name: str
@@ -86,6 +88,7 @@ class Prototype:
     interstitials: dict[str, tuple[Site, ...]] = field(default_factory=dict)
     cell_of: Callable[..., tuple[Site, Site, Site]] | None = None
     example_parameters: dict[str, float] = field(default_factory=dict)
+    example_charges: dict[str, int] = field(default_factory=dict)
 
     @property
     def n_sublattices(self) -> int:
@@ -123,10 +126,12 @@ PROTOTYPES: dict[str, Prototype] = {p.name: p for p in (
     Prototype("rocksalt", "rock salt (B1)",
               {"A": _FCC, "B": _fcc_plus((0.5, 0.0, 0.0))},
               ("Fm-3m", 225), {"A": "Mg", "B": "O"}, example_a=4.212,
+              example_charges={"Mg": 2, "O": -2},
               interstitials={"tetrahedral": _wrap(product((0.25, 0.75), repeat=3))}),
     Prototype("cesium-chloride", "cesium chloride (B2)",
               {"A": ((0.0, 0.0, 0.0),), "B": ((0.5, 0.5, 0.5),)},
-              ("Pm-3m", 221), {"A": "Cs", "B": "Cl"}, example_a=4.12),
+              ("Pm-3m", 221), {"A": "Cs", "B": "Cl"}, example_a=4.12,
+              example_charges={"Cs": 1, "Cl": -1}),
     Prototype("zincblende", "zinc blende (B3)",
               {"A": _FCC, "B": _fcc_plus((0.25, 0.25, 0.25))},
               ("F-43m", 216), {"A": "Ga", "B": "As"}, example_a=5.653,
@@ -135,11 +140,13 @@ PROTOTYPES: dict[str, Prototype] = {p.name: p for p in (
     Prototype("fluorite", "fluorite (C1)",
               {"A": _FCC, "X": _wrap(product((0.25, 0.75), repeat=3))},
               ("Fm-3m", 225), {"A": "U", "X": "O"}, example_a=5.47,
+              example_charges={"U": 4, "O": -2},
               interstitials={"octahedral": _fcc_plus((0.5, 0.5, 0.5))}),
     Prototype("perovskite", "cubic perovskite (E2_1)",
               {"A": ((0.0, 0.0, 0.0),), "B": ((0.5, 0.5, 0.5),),
                "X": ((0.5, 0.5, 0.0), (0.5, 0.0, 0.5), (0.0, 0.5, 0.5))},
-              ("Pm-3m", 221), {"A": "Sr", "B": "Ti", "X": "O"}, example_a=3.905),
+              ("Pm-3m", 221), {"A": "Sr", "B": "Ti", "X": "O"}, example_a=3.905,
+              example_charges={"Sr": 2, "Ti": 4, "O": -2}),
     Prototype("l1_2", "L1_2 (Cu3Au type)",
               {"A": ((0.0, 0.0, 0.0),), "B": ((0.5, 0.5, 0.0), (0.5, 0.0, 0.5), (0.0, 0.5, 0.5))},
               ("Pm-3m", 221), {"A": "Au", "B": "Cu"}, example_a=3.75),
@@ -173,7 +180,7 @@ PROTOTYPES: dict[str, Prototype] = {p.name: p for p in (
                               (0.5, 0.25, 0.25)),
                "X": lambda u, **_: _spinel_oxygen(u)},
               ("Fd-3m", 227), {"A": "Mg", "B": "Al", "X": "O"}, parameters={"u": 0.2624},
-              example_a=8.08),
+              example_a=8.08, example_charges={"Mg": 2, "Al": 3, "O": -2}),
     # atoms at 2c (1/3, 2/3, 1/4); octahedral holes at 2a (0, 0, 0), tetrahedral
     # holes at 4f (1/3, 2/3, z) with z = 1/4 +- 3/8 and their inversions, the
     # positions of touching spheres (textbook geometry; kept for any c/a)

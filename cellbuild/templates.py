@@ -47,20 +47,25 @@ _COMPOUND_TEXT = """\
 name: {formula_lower}-example       # file stem of every output: letters, digits, - _ .
 crystal:
   lattice: {lattice}
-  species: {species}    # element on each sublattice
+  {species_line}
   a: {a}                      # lattice constant, Angstrom ({formula} at room temperature, from memory: check it)
   # density: 5.0                # g/cm^3, instead of a
-size:
+{parameters}size:
   repeat: [3, 3, 3]             # exactly one of: repeat | atoms (target count) | min_length (Angstrom)
 seed: 1                         # seeds the random placement of defects
 outputs: [lammps-data, cif, xyz, poscar]
-# defects:
-#   vacancies: {{count: 1, on: {last}}}   # on: an element of the crystal
-#   substitutions:
-#     - {{element: {dopant}, count: 2, on: {first}}}
-# checks:
+{charges}# defects:
+#   vacancies: {{count: 1, on: {last_label}}}   # on: a sublattice label ({labels}) or an element
+{compound_defects}#   substitutions:
+#     - {{element: {dopant}, count: 2, on: {first_label}}}
+{interstitial}# checks:
 #   physical_spacing: true      # false: build a spacing no solid has (a unit slip), on purpose
+#   net_charge: 0               # elementary charges, with charges
 """
+
+#: Comment of each internal parameter in the starter recipe.
+_PARAMETER_TEXT = {"c_over_a": "c/a; or c in Angstrom; default ideal sqrt(8/3)",
+                   "u": "oxygen parameter (origin choice 2); default 0.2624, from memory"}
 
 
 def _compound_template(lattice: str) -> str:
@@ -73,10 +78,32 @@ def _compound_template(lattice: str) -> str:
     formula = "".join(f"{e}{n // unit if n // unit > 1 else ''}" for e, n in counts.items())
     species = "{" + ", ".join(f"{k}: {e}" for k, e in proto.example.items()) + "}"
     dopant = next(e for e in ("Ni", "Fe", "Ca", "Zn") if e not in elements)
+    labels = list(proto.sublattices)
+    one = len(labels) == 1
+    species_line = (f"element: {elements[0]}" if one
+                    else f"species: {species}    # element on each sublattice")
+    values = {**proto.parameters, **proto.example_parameters}
+    parameters = "".join(f"  {k}: {round(x, 4)}                # {_PARAMETER_TEXT[k]}\n"
+                         for k, x in values.items())
+    compound_defects = "" if one else (
+        "#   schottky: {count: 1}       # vacancies in the stoichiometric ratio, one per formula unit\n"
+        f"#   antisites: {{count: 1, pair: [{labels[0]}, {labels[1]}]}}   # swapped pairs\n")
+    interstitial = ""
+    if proto.interstitials:
+        interstitial = ("#   interstitials:\n"
+                        f"#     - {{element: H, site: {next(iter(proto.interstitials))}, count: 1}}"
+                        f"   # sites: {', '.join(proto.interstitials)}\n")
+    charges = ""
+    if proto.example_charges:  # formal charges; a dopant or interstitial needs its own
+        charges = ("# charges: {" + ", ".join(f"{e}: {q}" for e, q in proto.example_charges.items())
+                   + "}   # ionic charges (e): LAMMPS atom_style charge; give every element one\n")
     return _COMPOUND_TEXT.format(title=proto.title, formula=formula,
                                  formula_lower=formula.lower(), lattice=lattice,
-                                 species=species, a=proto.example_a, first=elements[0],
-                                 last=elements[-1], dopant=dopant)
+                                 species_line=species_line, a=proto.example_a,
+                                 parameters=parameters, charges=charges,
+                                 first_label=labels[0], last_label=labels[-1],
+                                 labels=", ".join(labels), dopant=dopant,
+                                 compound_defects=compound_defects, interstitial=interstitial)
 
 
 def template_for(lattice: str) -> str:

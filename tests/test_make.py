@@ -15,7 +15,7 @@ import pytest
 from conftest import recipe_dict
 
 LATTICES = ["sc", "bcc", "fcc", "diamond"]
-COMPOUND_PROTOTYPES = ["rocksalt", "cesium-chloride", "zincblende", "fluorite", "perovskite",
+COMPOUND_PROTOTYPES = ["hcp", "rocksalt", "cesium-chloride", "zincblende", "fluorite", "perovskite",
                        "l1_2", "a15", "c15", "heusler", "half-heusler", "spinel"]
 # one element per lattice, with a density (CRC Handbook, from memory) and an
 # atomic radius (half the nearest-neighbour distance of Kittel's a, from memory)
