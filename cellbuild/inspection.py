@@ -21,9 +21,10 @@ it). Here nothing is known but the coordinates, so everything is inferred:
    sc, bcc, fcc, diamond and ideal hcp are compared with the distribution,
    at the robust nearest-neighbour distance (median of the first shell); the
    implied lattice constant must also give about the right number of sites
-   for the volume (:mod:`cellbuild.lattice_match`). Species are ignored: rock
-   salt matches sc, CsCl bcc, zincblende diamond (the space group tells them
-   apart).
+   for the volume (:mod:`cellbuild.lattice_match`). Species are ignored there;
+   with two or more elements the compound prototypes are then tried per
+   species pair (:mod:`cellbuild.prototype_match`), and a match names the
+   lattice (rock salt ``rocksalt``, its sites' ``sc`` kept in ``prototype``).
 5. **Defects** against the matched lattice: vacancy-like atoms (too few
    neighbours), crowded atoms (too many, or closer than ``CROWDED_FRACTION``
    of the nearest-neighbour distance to another) and, among these, the
@@ -54,6 +55,7 @@ from .errors import InputError
 from .lattice_match import (CROWDED_FRACTION, PATTERN_NAMES, LatticeMatch, defects_note,
                             first_shell, infer_defects, match_lattice, site_count_reliable)
 from .pair_shells import PairDistribution, find_shells, pair_distribution
+from .prototype_match import expected_names, match_prototype, prototype_text
 from .repeating_unit import repeating_unit, space_group
 from .structure import Structure
 
@@ -61,8 +63,8 @@ __all__ = ["EXPECT_CHOICES", "LatticeMatch", "PairDistribution", "analyse", "den
            "describe", "find_shells", "inspect_file", "inspect_structure", "pair_distribution",
            "plot_paths", "repeating_unit", "space_group"]
 
-#: Every lattice name ``inspect --expect`` accepts.
-EXPECT_CHOICES = PATTERN_NAMES
+#: Every lattice and compound prototype name ``inspect --expect`` accepts.
+EXPECT_CHOICES = PATTERN_NAMES + expected_names()
 #: The min_distance check: no pair closer than this fraction of the first
 #: shell distance, or than the floor (Angstrom) when no shell is found.
 MIN_DISTANCE_FRACTION = 0.5
@@ -133,6 +135,7 @@ def _analyse(structure, file, cutoff, expect, potential_cutoff, workers, source,
     counts = neighbours.coordination_counts(cell, positions, cut, workers=workers)
     first = first_shell(distribution.distances, shells, boundaries)
     match, match_info = match_lattice(counts, shells, first, distribution, volume, n)
+    prototype, prototype_note = match_prototype(structure, pattern=match.name if match else None)
 
     crowded_r = CROWDED_FRACTION * match.nearest if match else 0.0
     pi, pj, pd = _pairs_below(structure, max(threshold, crowded_r), float(cd[0]), workers)
@@ -142,7 +145,10 @@ def _analyse(structure, file, cutoff, expect, potential_cutoff, workers, source,
     result.update(_distance_facts(ci, cj, cd, pi, pj, pd, threshold))
     result["shells"] = shells
     result["coordination"] = _coordination_facts(structure, counts, cut, cut_source)
-    result["lattice"] = match.name if match else None
+    result["lattice"] = prototype["name"] if prototype else match.name if match else None
+    result["prototype"] = prototype
+    if prototype_note:
+        result["prototype_note"] = prototype_note
     result["lattice_match"] = match_info
     result["defects"] = None
     if match:
@@ -166,7 +172,7 @@ def _analyse(structure, file, cutoff, expect, potential_cutoff, workers, source,
     if potential_cutoff is not None:
         checks.append(_potential_cutoff_check(cell, potential_cutoff))
     if expect is not None:
-        checks.append(_expected_lattice_check(match, match_info, expect))
+        checks.append(_expected_lattice_check(match, match_info, expect, prototype))
     result["checks"] = [c.as_dict() for c in checks]
     result["passed"] = all(c.passed for c in checks)
     return result, distribution
@@ -260,8 +266,6 @@ def _distance_threshold(shells: list[dict]) -> tuple[float, str]:
         return MIN_DISTANCE_FRACTION * d1, (f"{MIN_DISTANCE_FRACTION} x the first shell "
                                             f"distance {d1:.4f} A")
     return MIN_DISTANCE_FLOOR, f"absolute floor {MIN_DISTANCE_FLOOR} A: no neighbour shell found"
-
-
 
 
 # ----------------------------------------------------------------------------- physical spacing
@@ -407,7 +411,14 @@ def _potential_cutoff_check(cell: np.ndarray, r: float) -> Check:
                  f"(narrowest: along cell vector {'abc'[narrowest]}, {widths[narrowest]:.4f} A)")
 
 
-def _expected_lattice_check(match: LatticeMatch | None, info: dict, expect: str) -> Check:
+def _expected_lattice_check(match: LatticeMatch | None, info: dict, expect: str,
+                            prototype: dict | None = None) -> Check:
+    """Passes when ``expect`` names the compound prototype found or the species-blind
+    lattice of the sites (rock salt passes ``rocksalt`` and ``sc``)."""
+    if prototype is not None:
+        names = (prototype["name"], prototype["pattern"])
+        return Check("expected_lattice", expect in names,
+                     f"matches {prototype_text(prototype)}; expected {expect}")
     if match is None:
         return Check("expected_lattice", False,
                      f"matches no known lattice ({info.get('reason', '')}); expected {expect}")
@@ -512,6 +523,8 @@ def describe(result: dict) -> str:
 
 def _lattice_text(result: dict) -> str:
     info = result["lattice_match"]
+    if result.get("prototype"):
+        return prototype_text(result["prototype"])
     if result["lattice"] is None:
         return f"none ({info.get('reason', 'no match')})"
     return (f"{result['lattice']}, a = {info['lattice_constant']:.4f} A (most common "

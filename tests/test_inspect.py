@@ -375,11 +375,14 @@ def test_cutoff_option_overrides_the_automatic_one(cli, written):
 def test_rock_salt_sites_form_simple_cubic(cli, tmp_path):
     from ase.build import bulk
 
-    # species are ignored by the lattice match: NaCl's sites are sc with a/2;
-    # the space group stays Fm-3m 225 (International Tables)
+    # the species-blind lattice match sees NaCl's sites as sc with a/2; the
+    # prototype match with species names rock salt (ASE's bulk builds it); the
+    # space group stays Fm-3m 225 (International Tables)
     atoms = bulk("NaCl", "rocksalt", a=5.64, cubic=True).repeat(2)
     result, report = inspect_json(cli, write_ase(atoms, tmp_path, "cif"))
-    assert report["lattice"] == "sc"
+    assert report["lattice"] == "rocksalt"
+    assert report["prototype"]["pattern"] == "sc"
+    assert report["prototype"]["species"] == {"A": "Na", "B": "Cl"}
     assert report["lattice_match"]["lattice_constant"] == pytest.approx(5.64 / 2, rel=1e-6)
     assert report["space_group"]["number"] == 225
 

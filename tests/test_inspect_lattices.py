@@ -90,7 +90,9 @@ def test_hcp_is_reported_as_hcp_and_fails_expect_fcc(element, a, c):
 
 
 def test_expect_choices_name_every_lattice_including_hcp():
-    assert set(EXPECT_CHOICES) == {"sc", "bcc", "fcc", "diamond", "hcp"}
+    from cellbuild.prototypes import PROTOTYPES
+
+    assert set(EXPECT_CHOICES) == {"sc", "bcc", "fcc", "diamond", "hcp"} | set(PROTOTYPES)
 
 
 @pytest.mark.parametrize("lattice", sorted(CUBIC))
