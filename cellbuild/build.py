@@ -17,7 +17,7 @@ from pathlib import Path
 import numpy as np
 
 from .errors import InputError
-from .crystal import Crystal, resolve_crystal
+from .crystal import Crystal, resolve_cif, resolve_crystal
 from .defect_plan import count_defects
 from .lattices import LATTICES, touching_radius_factor
 from .recipe import Recipe
@@ -89,6 +89,8 @@ def lattice_constant(recipe: Recipe) -> tuple[float, str]:
     crystal = recipe.crystal
     if crystal.a is not None:
         return crystal.a, "given (crystal.a)"
+    if crystal.source_crystal is not None:
+        return _cif_constant(recipe)
     if crystal.density is not None:
         unit = _unit_crystal(recipe)  # g/mol per conventional cell over its volume in a^3
         mass = sum(standard_atomic_weight(e) for e in unit.elements)
@@ -102,6 +104,22 @@ def lattice_constant(recipe: Recipe) -> tuple[float, str]:
         return crystal.radius / factor, (
             f"from touching spheres of radius {crystal.radius} Angstrom")
     return _reference_constant(recipe), "reference value of ASE's data table"
+
+
+def _cif_constant(recipe: Recipe) -> tuple[float, str]:
+    """|a1| of a CIF's conventional cell: its own, or scaled to ``density`` (the
+    mass of the cell counts every occupant by its occupancy)."""
+    crystal, source = recipe.crystal, recipe.crystal.source_crystal
+    if crystal.density is None:
+        return source.a, "the CIF's cell"
+    weight = dict(source.occupancy)
+    labels = np.array(source.sublattice)
+    mass = sum(float(np.count_nonzero(labels == label)) * occ * standard_atomic_weight(e)
+               for label, occupants in weight.items() for e, occ in occupants)
+    volume = mass / (AVOGADRO * crystal.density) / ANGSTROM3_TO_CM3  # Angstrom^3
+    scale = (volume / abs(float(np.linalg.det(source.cell)))) ** (1.0 / 3.0)
+    return source.a * scale, (f"the CIF's cell scaled to density {crystal.density} g/cm^3 "
+                              "(standard atomic weights, occupancies counted)")
 
 
 def crystal_parameters(recipe: Recipe) -> tuple[tuple[str, float], ...]:
@@ -205,10 +223,13 @@ def resolve(recipe: Recipe, *, strict: bool = False) -> Plan:
             f"({MIN_CONSTANT} to {MAX_CONSTANT:g})", key=_constant_key(recipe),
             value=_constant_value(recipe, a), hint="check the units (Angstrom, g/cm^3)",
             file=recipe.source)
-    crystal = resolve_crystal(recipe.crystal.lattice, a, recipe.crystal.species,
-                              crystal_parameters(recipe))
+    if recipe.crystal.source_crystal is not None:
+        crystal = resolve_cif(recipe.crystal.source_crystal, a, recipe.crystal.species)
+    else:
+        crystal = resolve_crystal(recipe.crystal.lattice, a, recipe.crystal.species,
+                                  crystal_parameters(recipe))
     warnings = list(_spacing_warnings(recipe, crystal))
-    if not 1.0 <= a <= 20.0:
+    if not 1.0 <= a <= 20.0 and recipe.crystal.source_crystal is None:  # a CIF's own cell
         message = f"lattice constant {a:.4g} Angstrom is outside the plausible range 1 to 20"
         if strict:
             key = _constant_key(recipe)

@@ -206,6 +206,10 @@ def _plan_text(p: dict) -> str:
     ]
     if p["size_note"]:
         lines.append(f"  note: {p['size_note']}")
+    if p["cif"]:
+        lines.append(f"  from CIF          {p['cif']}")
+    for name, value in p["parameters"].items():
+        lines.append(f"  {name:17s} {value:.6g}")
     if len(p["sublattices"]) > 1:
         lines.append("  sublattices       " + ", ".join(
             f"{label} {s['element']} {s['sites']:,}" for label, s in p["sublattices"].items()))

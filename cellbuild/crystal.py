@@ -15,6 +15,7 @@ import dataclasses
 import math
 from dataclasses import dataclass
 from functools import lru_cache
+from pathlib import Path
 from itertools import product
 
 import numpy as np
@@ -55,6 +56,9 @@ class Crystal:
             B sees its 6 X at 0.5 a and A its 12 X at 0.707 a.
         parameters: internal parameters of a prototype as (name, value) pairs
             (hcp ``c_over_a``, spinel ``u``); empty for the cubic lattices.
+        occupancy: for a crystal from a CIF, ``(label, ((element, occupancy),
+            ...))`` per site label; :attr:`elements` holds each label's majority
+            element, the rest is placed as defects (:mod:`cellbuild.defect_plan`).
     """
 
     prototype: str
@@ -73,6 +77,7 @@ class Crystal:
     first_shells: dict[str, FirstShell]
     site_cutoff: tuple[float, ...]
     parameters: tuple[tuple[str, float], ...] = ()
+    occupancy: tuple[tuple[str, tuple[tuple[str, float], ...]], ...] = ()
 
     @property
     def n_basis(self) -> int:
@@ -185,6 +190,29 @@ def _resolve_compound(prototype: str, a: float, species, parameters: dict) -> Cr
                  proto.interstitials, proto.space_group, scaled, max(site_cutoff), site_cutoff,
                  unit),
         parameters=tuple(sorted(parameters.items())))
+
+
+def resolve_cif(source, a: float, species: tuple[tuple[str, str], ...]) -> Crystal:
+    """The :class:`Crystal` of a CIF's conventional cell (a
+    :class:`cellbuild.cif_crystal.CifCrystal`) scaled so that its first lattice
+    vector is ``a`` Angstrom long; ``species`` gives each label's element."""
+    return _resolve_cif(source, float(a), tuple(species))
+
+
+@lru_cache(maxsize=32)
+def _resolve_cif(source, a: float, species) -> Crystal:
+    unit_cell = source.cell / source.a  # rows in units of a
+    labels = source.sublattice
+    unit = first_shells(unit_cell, source.basis, labels, every_site=False)
+    site_cutoff = tuple(0.5 * (unit[lb].outer + unit[lb].next_distance) * a for lb in labels)
+    closest = min(unit.values(), key=lambda sh: sh.distance)
+    scaled = Shells((closest.distance * a,), (closest.coordination,))
+    name = Path(source.source).name
+    return dataclasses.replace(
+        _crystal("cif", f"crystal of {name}", a, unit_cell * a, source.basis, labels,
+                 dict(species), {}, source.space_group, scaled, max(site_cutoff), site_cutoff,
+                 unit),
+        occupancy=source.occupancy)
 
 
 def _crystal(prototype, title, a, cell, basis, labels, on, interstitials, space_group,

@@ -111,6 +111,49 @@ def _refuse_interstitial(host: str | None, on: str, key: str, source: str | None
                          key=key, value=on, hint="name a sublattice label or an element", file=source)
 
 
+def occupancy_requests(crystal: Crystal, n_cells: int) -> list[Request]:
+    """A CIF's partial occupancies as exact counts, placed before the recipe's defects.
+
+    On each label's ``N`` sites in the supercell, each occupant's share (and the
+    vacant share, one minus their sum, when positive; shares summing above 1 by
+    rounding are scaled to 1) gets ``floor(share * N)`` sites, and the sites
+    left go one each to the largest remainders (ties: elements in sorted order,
+    vacancies last): the counts sum to ``N`` exactly. The majority element holds
+    the label's sites in the perfect crystal; the others arrive as substitutions
+    and the vacant share as vacancies, all with key ``crystal.cif``.
+    """
+    out = []
+    for label, occupants in crystal.occupancy:
+        host = crystal.elements[crystal.sublattice.index(label)]
+        sites = tuple(i for i, lb in enumerate(crystal.sublattice) if lb == label)
+        shares = [(e, q) for e, q in occupants]
+        total = sum(q for _, q in shares)
+        if total < 1.0 - 1e-9:
+            shares.append((None, 1.0 - total))
+        else:
+            shares = [(e, q / total) for e, q in shares]
+        counts = largest_remainder([q for _, q in shares], len(sites) * n_cells)
+        for (element, _), n in zip(shares, counts):
+            if element == host or n == 0:
+                continue
+            kind = "vacancy" if element is None else "substitution"
+            out.append(Request(kind, element or host, label, "crystal.cif", Amount(count=n),
+                               host, sites))
+    return out
+
+
+def largest_remainder(shares: list[float], n: int) -> list[int]:
+    """Whole counts summing to ``n`` in proportion to ``shares`` (summing to 1):
+    floors first, then one more each for the largest remainders, earlier first on ties."""
+    exact = [q * n for q in shares]
+    counts = [int(math.floor(x + 1e-9)) for x in exact]
+    left = n - sum(counts)
+    order = sorted(range(len(shares)), key=lambda i: (-(exact[i] - counts[i]), i))
+    for i in order[:max(left, 0)]:
+        counts[i] += 1
+    return counts
+
+
 def schottky_units(crystal: Crystal) -> dict[str, int]:
     """Vacancies per Schottky defect on each sublattice: its sites per cell over the
     greatest common divisor of all (the stoichiometric ratio: spinel 1 : 2 : 4)."""
@@ -162,7 +205,7 @@ def count_defects(recipe: Recipe, crystal: Crystal,
     accepted here always finds its sites (exact when targets are equal or disjoint).
     """
     out: list[tuple[Request, int]] = []
-    for req in requests(recipe, crystal):
+    for req in occupancy_requests(crystal, n_cells) + requests(recipe, crystal):
         pool = len(req.sites) * n_cells
         n = requested_count(req.amount, pool)
         mine = set(req.sites)

@@ -19,6 +19,7 @@ def describe(plan: Plan) -> dict:
         "element": recipe.crystal.element,
         "species": dict(recipe.crystal.species),
         "parameters": dict(plan.crystal.parameters),
+        "cif": recipe.crystal.cif,
         "lattice_constant": plan.lattice_constant,
         "lattice_constant_source": plan.lattice_constant_source,
         "repeat": list(plan.repeat),

@@ -230,18 +230,23 @@ class FirstShell:
         return sum(self.counts.values())
 
 
-def first_shells(cell, frac: np.ndarray, labels: tuple[str, ...]) -> dict[str, FirstShell]:
+def first_shells(cell, frac: np.ndarray, labels: tuple[str, ...], *,
+                 every_site: bool = True) -> dict[str, FirstShell]:
     """First shell of each sublattice: distances through the cell metric to every
     site of the surrounding 5x5x5 cells, equal within :data:`SHELL_TOLERANCE`.
 
-    Every site of a sublattice must see the same shell (checked, not assumed).
+    Every site of a sublattice must see the same shell (checked, not assumed);
+    ``every_site=False`` measures the first site of each sublattice only (a
+    CIF's labels are symmetry-equivalent sites by construction).
     """
     cell = np.asarray(cell, dtype=np.float64)
     images = np.array(list(product(range(-2, 3), repeat=3)), dtype=np.float64)
     grid = (images[:, None, :] + frac[None, :, :]).reshape(-1, 3)
     grid_labels = np.tile(np.array(labels), len(images))
     result: dict[str, FirstShell] = {}
-    for s, label in enumerate(labels):
+    sites = range(len(labels)) if every_site else [labels.index(lb) for lb in dict.fromkeys(labels)]
+    for s in sites:
+        label = labels[s]
         d = np.linalg.norm((grid - frac[s]) @ cell, axis=1)
         keep = d > 1e-9
         d, near_labels = d[keep], grid_labels[keep]

@@ -77,8 +77,13 @@ class Crystal:
     c: float | None = None
     c_over_a: float | None = None
     u: float | None = None
+    cif: str | None = None
+    source_crystal: Any = field(default=None, repr=False, compare=False)
 
     def __post_init__(self) -> None:
+        if self.cif is not None or self.lattice == "cif":
+            self._from_cif()
+            return
         if v.text(self.lattice, "crystal.lattice") not in KNOWN_LATTICES:
             v.fail("crystal.lattice", self.lattice, "is not a known lattice",
                    f"known lattices: {', '.join(KNOWN_LATTICES)}")
@@ -107,6 +112,38 @@ class Crystal:
             raise InputError(f"is required for {self.lattice}", key="crystal.a",
                              hint="give crystal.a (Angstrom) or crystal.density (g/cm^3)")
         self._check_parameters(proto)
+
+    def _from_cif(self) -> None:
+        """A crystal read from the CIF at ``cif`` (read here, once): sublattices are
+        its site labels, each holding its majority element; ``a`` or ``density``
+        scale its cell."""
+        from .cif_crystal import crystal_from_cif
+
+        if self.cif is None:
+            v.fail("crystal.cif", None, "is required with lattice: cif",
+                   "give the path of a CIF file")
+        for key in ("element", "species", "radius", "c", "c_over_a", "u"):
+            if getattr(self, key) is not None:
+                v.fail(f"crystal.{key}", getattr(self, key), "cannot be given with crystal.cif",
+                       "the CIF gives the species and the cell; a or density scale it")
+        if self.lattice not in (None, "cif"):
+            v.fail("crystal.lattice", self.lattice, "cannot be given with crystal.cif",
+                   "leave lattice out: the CIF gives the structure")
+        path = v.text(self.cif, "crystal.cif")
+        which = _exclusive(self, ("a", "density"), "crystal", required=False)
+        if which:
+            _set(self, which, v.number(getattr(self, which), f"crystal.{which}"))
+        if self.source_crystal is None:
+            try:
+                _set(self, "source_crystal", crystal_from_cif(path))
+            except InputError as exc:
+                where = f" ({exc.file}{f', line {exc.line}' if exc.line else ''})"
+                raise InputError(exc.message + where, key="crystal.cif", value=path,
+                                 hint=exc.hint) from None
+        _set(self, "lattice", "cif")
+        _set(self, "species", tuple((label, _majority(occupants))
+                                    for label, occupants in self.source_crystal.occupancy))
+        _set(self, "element", self.species[0][1])
 
     def _check_parameters(self, proto) -> None:
         allowed = proto.parameters if proto is not None else {}
@@ -139,8 +176,18 @@ class Crystal:
         return tuple(out)
 
     def elements(self) -> tuple[str, ...]:
-        """The element of each sublattice, without repeats, in sublattice order."""
+        """The element of each sublattice, without repeats, in sublattice order
+        (a CIF's partial occupants after each label's majority element)."""
+        if self.source_crystal is not None:
+            return tuple(dict.fromkeys(
+                [e for _, e in self.species]
+                + [e for _, occ in self.source_crystal.occupancy for e, _ in occ]))
         return tuple(dict.fromkeys(e for _, e in self.species))
+
+
+def _majority(occupants: tuple[tuple[str, float], ...]) -> str:
+    """The element with the largest occupancy (the first in sorted order on ties)."""
+    return max(occupants, key=lambda pair: pair[1])[0]
 
 
 @dataclass(frozen=True)
@@ -372,7 +419,8 @@ class _Checker:
 
 TOP_KEYS = ("name", "crystal", "size", "seed", "outputs", "defects", "types", "checks",
             "charges", "sweep")
-CRYSTAL_KEYS = ("element", "lattice", "a", "density", "radius", "species", "c", "c_over_a", "u")
+CRYSTAL_KEYS = ("element", "lattice", "a", "density", "radius", "species", "c", "c_over_a", "u",
+                "cif")
 SIZE_KEYS = ("repeat", "atoms", "min_length")
 DEFECT_KEYS = ("vacancies", "schottky", "substitutions", "antisites", "interstitials",
                "min_separation")
@@ -403,7 +451,7 @@ def parse_recipe(data: Any, lines: Lines | None = None, file: str | None = None)
     name = data["name"]
     if isinstance(name, (int, float)) and not isinstance(name, bool):
         name = str(name)  # data built in Python; a file's name is always read as text
-    crystal = _crystal(c, data["crystal"])
+    crystal = _crystal(c, data["crystal"], file)
     size = _size(c, data["size"])
     defects = _defects(c, data.get("defects", {}), crystal)
     checks = _checks(c, data.get("checks", {}))
@@ -420,9 +468,15 @@ def load_recipe(path: str | Path) -> Recipe:
     return parse_recipe(data, lines, str(path))
 
 
-def _crystal(c: _Checker, value: Any) -> Crystal:
+def _crystal(c: _Checker, value: Any, file: str | None = None) -> Crystal:
     data = c.mapping(value, "crystal")
     c.known_keys(data, CRYSTAL_KEYS, "crystal")
+    if "cif" in data:
+        fields = {"element": None, "lattice": None, **data}
+        if isinstance(data["cif"], str) and file is not None:
+            # a relative path is read from the recipe's folder, wherever make runs
+            fields["cif"] = str(Path(file).parent / data["cif"])
+        return c.make(Crystal, "", **fields)
     if "lattice" not in data:
         c.fail_missing("crystal.lattice", "is required")
     one_species = not isinstance(data["lattice"], str) or data["lattice"] in LATTICES or (
