@@ -7,7 +7,9 @@ clock, peak memory (maximum resident set size) from the child's rusage
 (os.wait4). Prints a table: atoms, wall s, peak MB, s per million atoms, ratio
 to the ASE script. The ASE script does the same job with ASE alone: bulk +
 repeat, delete 1 % of the atoms at random, substitute 10 %, neighbour list for
-coordination, write lammps-data.
+coordination, write lammps-data. Rock salt and perovskite at about 1M atoms
+(Schottky defects, a 10 % dopant, charges, LAMMPS data) are compared with fcc
+at 1M atoms per atom.
 """
 from __future__ import annotations
 
@@ -31,6 +33,28 @@ defects:
   vacancies: {{fraction: 0.01}}
   substitutions:
     - {{element: Ni, fraction: 0.10}}
+"""
+
+#: Compounds at about 1M atoms with defects and charges (neutral: Schottky
+#: defects and an isovalent dopant), against fcc at the same size.
+COMPOUNDS = {
+    "rocksalt": ("{{lattice: rocksalt, species: {{A: Mg, B: O}}, a: 4.212}}", 50,
+                 "schottky: {{count: 5000}}\n  substitutions: [{{element: Ca, fraction: 0.10, on: A}}]",
+                 "{{Mg: 2, O: -2, Ca: 2}}"),
+    "perovskite": ("{{lattice: perovskite, species: {{A: Sr, B: Ti, X: O}}, a: 3.905}}", 58,
+                   "schottky: {{count: 1951}}\n  substitutions: [{{element: Ba, fraction: 0.10, on: A}}]",
+                   "{{Sr: 2, Ti: 4, O: -2, Ba: 2}}"),
+}
+
+COMPOUND_RECIPE = """\
+name: {{name}}
+crystal: {crystal}
+size: {{{{repeat: [{{n}}, {{n}}, {{n}}]}}}}
+seed: 1
+outputs: [{{outputs}}]
+charges: {charges}
+defects:
+  {defects}
 """
 
 ASE_SCRIPT = """
@@ -71,10 +95,12 @@ def cellbuild_cmd() -> list[str]:
     return [sys.executable, "-m", "cellbuild.cli"]
 
 
-def make_run(work: Path, n: int, outputs: str, runs: int) -> tuple[int, float, float]:
-    """Median wall and peak memory of `cellbuild make` on fcc n x n x n with the defects."""
-    recipe = work / f"cu{n}.yaml"
-    recipe.write_text(RECIPE.format(name=f"cu{n}", n=n, outputs=outputs))
+def make_run(work: Path, n: int, outputs: str, runs: int,
+             template: str = RECIPE, name: str = "cu") -> tuple[int, float, float]:
+    """Median wall and peak memory of `cellbuild make` on n x n x n cells of the
+    recipe ``template`` (fcc Cu with the defects by default)."""
+    recipe = work / f"{name}{n}.yaml"
+    recipe.write_text(template.format(name=f"{name}{n}", n=n, outputs=outputs))
     walls, peaks = [], []
     for _ in range(runs):
         wall, peak, out = run_child(cellbuild_cmd() + ["make", str(recipe), "--out",
@@ -82,7 +108,7 @@ def make_run(work: Path, n: int, outputs: str, runs: int) -> tuple[int, float, f
         walls.append(wall)
         peaks.append(peak)
     atoms = int(out.split(":")[1].split("atoms")[0].replace(",", ""))
-    for f in (work / "out").glob(f"cu{n}.*"):
+    for f in (work / "out").glob(f"{name}{n}.*"):
         f.unlink()
     return atoms, statistics.median(walls), max(peaks)
 
@@ -119,6 +145,14 @@ def main() -> None:
         ase_wall = wall
         atoms, wall, peak = make_run(work, 40, "lammps-data", args.runs)
         rows.append(("cellbuild make, 40^3, lammps-data", atoms, wall, peak, ase_wall / wall))
+        atoms, wall, peak = make_run(work, 63, "lammps-data", args.runs)
+        rows.append(("cellbuild make, fcc 63^3, lammps-data", atoms, wall, peak, None))
+        fcc_per_atom = wall / atoms
+        for key, (crystal, n, defects, charges) in COMPOUNDS.items():
+            template = COMPOUND_RECIPE.format(crystal=crystal, defects=defects, charges=charges)
+            c_atoms, c_wall, c_peak = make_run(work, n, "lammps-data", args.runs, template, key)
+            rows.append((f"cellbuild make, {key} {n}^3, charges", c_atoms, c_wall, c_peak, None))
+            print(f"{key}: wall per atom / fcc's = {c_wall / c_atoms / fcc_per_atom:.2f}")
         atoms, wall, peak = make_run(work, 63, "lammps-data, xyz", args.runs)
         rows.append(("cellbuild make, 63^3, lammps-data + xyz", atoms, wall, peak, None))
         per_m_1m = wall / atoms * 1e6
