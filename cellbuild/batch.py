@@ -155,7 +155,7 @@ def _expand(source: Source):
             sha = hashlib.sha256(handle.read(MAX_BYTES + 1)).hexdigest()
     except OSError as exc:
         raise InputError(f"cannot be read ({exc.strerror or exc})", file=source.recipe) from None
-    return sha, expand(data, lines, source.recipe)
+    return sha, expand(data, lines, source.recipe, folder=str(Path(source.path).parent))
 
 
 def _fallback_name(source: Source) -> str:

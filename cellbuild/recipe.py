@@ -66,6 +66,8 @@ class Crystal:
     is then set to the element of the first sublattice (the host for defaults).
     A prototype of one sublattice (hcp) takes either. Internal parameters:
     ``c`` (Angstrom, needs ``a``) or ``c_over_a`` for hcp, ``u`` for spinel.
+    ``cif``: a CIF file (read from ``cif_folder`` when relative, else from the
+    current folder) whose cell and labelled sites make the crystal.
     """
 
     element: str | None
@@ -78,6 +80,7 @@ class Crystal:
     c_over_a: float | None = None
     u: float | None = None
     cif: str | None = None
+    cif_folder: str | None = field(default=None, repr=False, compare=False)
     source_crystal: Any = field(default=None, repr=False, compare=False)
 
     def __post_init__(self) -> None:
@@ -135,7 +138,7 @@ class Crystal:
             _set(self, which, v.number(getattr(self, which), f"crystal.{which}"))
         if self.source_crystal is None:
             try:
-                _set(self, "source_crystal", crystal_from_cif(path))
+                _set(self, "source_crystal", crystal_from_cif(Path(self.cif_folder or ".") / path))
             except InputError as exc:
                 where = f" ({exc.file}{f', line {exc.line}' if exc.line else ''})"
                 raise InputError(exc.message + where, key="crystal.cif", value=path,
@@ -432,8 +435,12 @@ SCHOTTKY_KEYS = ("count",)
 CHECK_KEYS = ("min_distance", "physical_spacing", "net_charge")
 
 
-def parse_recipe(data: Any, lines: Lines | None = None, file: str | None = None) -> Recipe:
+def parse_recipe(data: Any, lines: Lines | None = None, file: str | None = None, *,
+                 folder: str | None = None) -> Recipe:
     """Validate plain recipe data into a :class:`Recipe`.
+
+    Relative paths in the recipe (``crystal.cif``) are read from ``folder``,
+    by default the folder of ``file`` (the current folder without a file).
 
     A ``sweep`` key is refused here: expand sweeps first (:mod:`cellbuild.sweep`).
     """
@@ -451,7 +458,9 @@ def parse_recipe(data: Any, lines: Lines | None = None, file: str | None = None)
     name = data["name"]
     if isinstance(name, (int, float)) and not isinstance(name, bool):
         name = str(name)  # data built in Python; a file's name is always read as text
-    crystal = _crystal(c, data["crystal"], file)
+    if folder is None and file is not None:
+        folder = str(Path(file).parent)
+    crystal = _crystal(c, data["crystal"], folder)
     size = _size(c, data["size"])
     defects = _defects(c, data.get("defects", {}), crystal)
     checks = _checks(c, data.get("checks", {}))
@@ -468,14 +477,13 @@ def load_recipe(path: str | Path) -> Recipe:
     return parse_recipe(data, lines, str(path))
 
 
-def _crystal(c: _Checker, value: Any, file: str | None = None) -> Crystal:
+def _crystal(c: _Checker, value: Any, folder: str | None = None) -> Crystal:
     data = c.mapping(value, "crystal")
     c.known_keys(data, CRYSTAL_KEYS, "crystal")
     if "cif" in data:
-        fields = {"element": None, "lattice": None, **data}
-        if isinstance(data["cif"], str) and file is not None:
-            # a relative path is read from the recipe's folder, wherever make runs
-            fields["cif"] = str(Path(file).parent / data["cif"])
+        # a relative path is read from the recipe's folder, wherever make runs;
+        # the report keeps the path as written
+        fields = {"element": None, "lattice": None, **data, "cif_folder": folder}
         return c.make(Crystal, "", **fields)
     if "lattice" not in data:
         c.fail_missing("crystal.lattice", "is required")

@@ -25,7 +25,7 @@ from pathlib import Path
 from typing import Any, Iterator, Mapping
 
 from .errors import InputError
-from .recipe import (CHECK_KEYS, CRYSTAL_KEYS, DEFECT_KEYS, INTERSTITIAL_KEYS, NAME_PATTERN,
+from .recipe import (ANTISITE_KEYS, SCHOTTKY_KEYS, CHECK_KEYS, CRYSTAL_KEYS, DEFECT_KEYS, INTERSTITIAL_KEYS, NAME_PATTERN,
                      SIZE_KEYS, SUBSTITUTION_KEYS, TOP_KEYS, VACANCY_KEYS, Recipe, load_yaml,
                      parse_recipe)
 
@@ -68,8 +68,10 @@ def expand_file(path: str | Path) -> list[Point]:
 
 
 def expand(data: Any, lines: Mapping[str, int] | None = None,
-           file: str | None = None) -> list[Point]:
+           file: str | None = None, folder: str | None = None) -> list[Point]:
     """Expand raw recipe ``data`` into its validated points, in sweep order.
+    ``folder``: where the recipe's relative paths (``crystal.cif``) are read from
+    (default: the folder of ``file``).
 
     The last sweep key varies fastest. Raises :class:`InputError` naming the
     key for an unknown sweep key, an empty or non-list value list, more than
@@ -78,7 +80,7 @@ def expand(data: Any, lines: Mapping[str, int] | None = None,
     """
     lines = dict(lines or {})
     if not isinstance(data, dict) or "sweep" not in data:
-        recipe = parse_recipe(data, lines, file)
+        recipe = parse_recipe(data, lines, file, folder=folder)
         return [Point(recipe.name, data, {}, recipe)]
     base = {k: v for k, v in data.items() if k != "sweep"}
     name = _checked_name(base, lines, file)
@@ -101,7 +103,7 @@ def expand(data: Any, lines: Mapping[str, int] | None = None,
                              hint="shorten `name` or the swept values",
                              file=file, line=lines.get("sweep"))
         seen[point_name] = values
-        points.append(_point(base, point_name, sweep, combo, lines, file))
+        points.append(_point(base, point_name, sweep, combo, lines, file, folder))
     return points
 
 
@@ -120,6 +122,8 @@ def _schema() -> dict:
         "defects": {
             **leaf(DEFECT_KEYS),
             "vacancies": leaf(VACANCY_KEYS),
+            "schottky": leaf(SCHOTTKY_KEYS),
+            "antisites": [leaf(ANTISITE_KEYS)],
             "substitutions": [leaf(SUBSTITUTION_KEYS)],
             "interstitials": [leaf(INTERSTITIAL_KEYS)],
         },
@@ -267,7 +271,7 @@ def _checked_name(base: dict, lines: Mapping[str, int], file: str | None) -> str
 
 
 def _point(base: dict, name: str, sweep: list, combo: tuple[int, ...],
-           lines: Mapping[str, int], file: str | None) -> Point:
+           lines: Mapping[str, int], file: str | None, folder: str | None = None) -> Point:
     """Set the values (``combo``: one index per sweep key) on a copy of ``base``
     and validate it as a recipe."""
     data = copy.deepcopy(base)
@@ -283,7 +287,7 @@ def _point(base: dict, name: str, sweep: list, combo: tuple[int, ...],
             moved[_recipe_key(path)] = line
     point_lines = _PointLines(lines, moved) if moved else lines
     try:
-        recipe = parse_recipe(data, point_lines, file)
+        recipe = parse_recipe(data, point_lines, file, folder=folder)
     except InputError as exc:
         exc.message = f"{exc.message} (sweep point `{name}`)"
         raise
