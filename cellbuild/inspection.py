@@ -143,6 +143,7 @@ def _analyse(structure, file, cutoff, expect, potential_cutoff, workers, source,
     result = {"file": file, **(source or {})}
     result.update(_cell_facts(structure))
     result.update(_distance_facts(ci, cj, cd, pi, pj, pd, threshold))
+    result["net_charge"] = structure.net_charge()  # atoms' charges (e), if the file has them
     result["shells"] = shells
     result["coordination"] = _coordination_facts(structure, counts, cut, cut_source)
     result["lattice"] = prototype["name"] if prototype else match.name if match else None

@@ -55,6 +55,10 @@ import numpy as np
 from . import neighbours
 from .prototypes import PROTOTYPES, basis, first_shells
 
+#: Elements below this fraction of the atoms may be left out as dopants when
+#: the whole composition fits no prototype (their sites then look vacant, within
+#: the composition and site-fill tolerances).
+MINOR_FRACTION = 0.06
 #: Centre atoms drawn per element (seeded); medians of a few thousand are exact
 #: for integer counts at a few per cent of defects.
 SAMPLE_PER_ELEMENT = 2000
@@ -289,8 +293,31 @@ def match_prototype(structure, *, pattern: str | None = None) -> tuple[dict | No
     is, as a JSON-ready dict (see the module docstring), or None with a sentence
     saying why; ``pattern`` is the species-blind lattice, copied into the result.
 
-    One-element structures are never compounds: (None, None).
+    One-element structures are never compounds: (None, None). When all elements
+    together fit no prototype, elements under ``MINOR_FRACTION`` of the atoms
+    (dopants, substituents) are left out and the rest matched again; the result
+    then lists them under ``minor_elements`` (element -> atoms).
     """
+    found, why = _match(structure, pattern)
+    if found is not None:
+        return found, why
+    counts = structure.counts()
+    minor = np.flatnonzero((counts > 0) & (counts < MINOR_FRACTION * structure.n_atoms))
+    if minor.size == 0 or np.count_nonzero(counts) - minor.size < 2:
+        return found, why
+    from .structure import Structure
+
+    keep = ~np.isin(structure.species, minor)
+    host = Structure(structure.cell, structure.positions[keep], structure.species[keep],
+                     structure.symbols)
+    again, _ = _match(host, pattern)
+    if again is None:
+        return found, why
+    again["minor_elements"] = {structure.symbols[c]: int(counts[c]) for c in minor}
+    return again, None
+
+
+def _match(structure, pattern: str | None) -> tuple[dict | None, str | None]:
     present = int(np.count_nonzero(structure.counts()))
     if present < 2:
         return None, None
@@ -329,6 +356,9 @@ def prototype_text(found: dict) -> str:
         f"{label} {sub['coordination']['mean']:.2f}/{sub['coordination']['expected']}"
         for label, sub in found["sublattices"].items())
     pattern = found["pattern"] or "none"
+    minor = found.get("minor_elements")
+    if minor:  # dopants left out of the match
+        species += " with " + ", ".join(f"{n:,} {e}" for e, n in minor.items())
     return (f"{found['name']} {species}, a = {found['lattice_constant']:.4f} A "
             f"({found['title']}; {found['cells']:.1f} cells; first-shell neighbours "
             f"{coordination}; species-blind pattern {pattern}; misfit {found['score']:.3f})")

@@ -228,7 +228,9 @@ def fast_lammps(path: Path, head: LammpsHeader, types) -> Structure | None:
     xyz_cols = (n_cols - 3, n_cols - 2, n_cols - 1)
     try:
         width = len(data[starts[first]:starts[first + 1]].split(b"#")[0].split())
-        usecols = (0, 1) + xyz_cols + ((n_cols, n_cols + 1, n_cols + 2) if width == n_cols + 3 else ())
+        images = (n_cols, n_cols + 1, n_cols + 2) if width == n_cols + 3 else ()
+        charge = (2,) if head.style == "charge" else ()  # id type q x y z
+        usecols = (0, 1) + xyz_cols + images + charge
         rows = load_rows(path, data, starts, first, head.n_atoms, usecols, np.float64)
     except ValueError:
         return None
@@ -237,7 +239,7 @@ def fast_lammps(path: Path, head: LammpsHeader, types) -> Structure | None:
     type_of = rows[:, 1].astype(np.int64)
     cell = _lammps_cell(head.bounds)
     positions = rows[:, 2:5].copy()
-    if rows.shape[1] == 8:  # image flags: unwrap as ASE does
+    if images:  # image flags: unwrap as ASE does
         positions += np.einsum("ij,jk->ik", rows[:, 5:8], cell)
     used = np.unique(type_of)
     if used[0] < 1:
@@ -248,7 +250,7 @@ def fast_lammps(path: Path, head: LammpsHeader, types) -> Structure | None:
     for t in used:
         code_of_type[t] = unique.index(symbols[int(t)])
     return Structure(cell=cell, positions=positions, species=code_of_type[type_of],
-                     symbols=unique)
+                     symbols=unique, charges=rows[:, -1].copy() if charge else None)
 
 
 def _lammps_cell(b: dict) -> np.ndarray:

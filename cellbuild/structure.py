@@ -127,7 +127,8 @@ class Structure:
 
     @classmethod
     def from_ase(cls, atoms) -> "Structure":
-        """Build from an ``ase.Atoms``; species codes follow first appearance."""
+        """Build from an ``ase.Atoms``; species codes follow first appearance; charges
+        from the atoms' initial charges when ASE holds them."""
         numbers = atoms.get_atomic_numbers()
         _, first, inverse = np.unique(numbers, return_index=True, return_inverse=True)
         order = np.argsort(first)  # species codes in order of first appearance
@@ -135,9 +136,12 @@ class Structure:
         rank[order] = np.arange(len(order))
         syms = atoms.get_chemical_symbols()
         symbols = tuple(syms[i] for i in np.sort(first))
+        charges = (np.array(atoms.get_initial_charges(), dtype=np.float64)
+                   if atoms.has("initial_charges") else None)
         return cls(
             cell=np.array(atoms.cell[:], dtype=np.float64),
             positions=np.array(atoms.positions, dtype=np.float64),
             species=rank[inverse].astype(np.int32),
             symbols=symbols,
+            charges=charges,
         )

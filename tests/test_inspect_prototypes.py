@@ -179,3 +179,26 @@ def test_random_two_species_diamond_is_not_zincblende():
     atoms.set_chemical_symbols(symbols.tolist())
     result = inspect(Structure.from_ase(atoms))
     assert result["prototype"] is None and result["lattice"] == "diamond"
+
+
+def test_a_doped_compound_is_matched_with_its_dopant_named(cli, recipe_file, tmp_path):
+    """8 % Ni on the Mg sites of rock salt MgO (a third element, textbook rock salt
+    otherwise): matched as rock salt with the dopant listed, and the net charge of
+    a charged LAMMPS file is read back (formal charges, common practice)."""
+    import json as _json
+
+    data = {"name": "mgo-ni", "seed": 2, "outputs": ["lammps-data", "xyz"],
+            "crystal": {"lattice": "rocksalt", "species": {"A": "Mg", "B": "O"}, "a": 4.212},
+            "size": {"repeat": 5}, "charges": {"Mg": 2, "O": -2, "Ni": 2},
+            "checks": {"net_charge": 4},
+            "defects": {"substitutions": [{"element": "Ni", "fraction": 0.08, "on": "A"}],
+                        "vacancies": {"count": 2, "on": "B"}}}
+    out = tmp_path / "out"
+    assert cli("make", recipe_file(data), "--out", out).exit_code == 0
+    for name in ("mgo-ni.xyz", "mgo-ni.lmp"):
+        result = cli("inspect", out / name, "--json", "--types", "Mg,O,Ni")
+        report = _json.loads(result.output)
+        assert report["lattice"] == "rocksalt", name
+        assert report["prototype"]["species"] == {"A": "Mg", "B": "O"}
+        assert report["prototype"]["minor_elements"] == {"Ni": 40}  # 8 % of 500 sites
+        assert report["net_charge"] == pytest.approx(4.0)
