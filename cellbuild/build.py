@@ -247,12 +247,12 @@ def resolve(recipe: Recipe, *, strict: bool = False) -> Plan:
         raise InputError(
             f"would need about {_human(memory)} of memory for {n_sites:,} atoms, "
             f"more than this machine's {_human(available)}",
-            key=f"size.{_size_key(recipe)}", value=_size_value(recipe),
+            key=f"size.{size_key(recipe)}", value=size_value(recipe),
             hint="choose a smaller size", file=recipe.source)
     box = tuple(float(x) for x in np.linalg.norm(crystal.supercell(repeat), axis=1))
     if max(box) > MAX_BOX:
         raise InputError(f"gives a box of {max(box):.4g} Angstrom, longer than {MAX_BOX:g}",
-                         key=f"size.{_size_key(recipe)}", value=_size_value(recipe),
+                         key=f"size.{size_key(recipe)}", value=size_value(recipe),
                          hint="choose a smaller size", file=recipe.source)
     counts = count_defects(recipe, crystal, math.prod(repeat))  # refuses impossible requests
     n_atoms += sum(n if req.kind == "interstitial" else -n
@@ -295,8 +295,8 @@ def check_disk_space(plan: Plan, out_dir: str | os.PathLike) -> None:
     if needed > free:
         raise InputError(
             f"the outputs need about {_human(needed)} but the disk holding {out_dir} has "
-            f"{_human(free)} free", key=f"size.{_size_key(plan.recipe)}",
-            value=_size_value(plan.recipe), hint="choose a smaller size or fewer outputs",
+            f"{_human(free)} free", key=f"size.{size_key(plan.recipe)}",
+            value=size_value(plan.recipe), hint="choose a smaller size or fewer outputs",
             file=plan.recipe.source)
 
 
@@ -364,12 +364,12 @@ def _human(n: float) -> str:
     return f"{n:.3g} PB"
 
 
-def _size_key(recipe: Recipe) -> str:
+def size_key(recipe: Recipe) -> str:
     size = recipe.size
     return "repeat" if size.repeat else "atoms" if size.atoms else "min_length"
 
 
-def _size_value(recipe: Recipe):
+def size_value(recipe: Recipe):
     size = recipe.size
     value = size.repeat or size.atoms or size.min_length
     return list(value) if isinstance(value, tuple) else value

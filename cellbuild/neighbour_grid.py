@@ -10,8 +10,11 @@ import numpy as np
 from .cellgeom import (_checked_cell, _checked_positions, _times, _wrapped_fractional,
                        perpendicular_widths)
 
-# would cost more memory than the general engine needs (2**26 = 67,108,864).
-MAX_GRID_SITES = 1 << 26
+# would cost more memory than the general engine needs (2**28 = 268,435,456 sites:
+# an int64 atom index per site is 2.1 GB, within the 400 bytes per atom a build
+# budgets for fcc up to 134M atoms, so every fcc or bcc build that fits this
+# machine's memory is counted on the grid).
+MAX_GRID_SITES = 1 << 28
 # Offsets enumerated by the grid path; beyond this the general engine is cheaper
 # (the box of candidate offsets, 8x this, stays at 12 MB).
 MAX_GRID_OFFSETS = 1 << 16

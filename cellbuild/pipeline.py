@@ -18,11 +18,12 @@ import numpy as np
 
 from . import __version__
 from .audit import Audit, audit
-from .build import Plan, build_perfect, check_disk_space, resolve
+from .build import Plan, build_perfect, check_disk_space, resolve, size_key, size_value
 from .defects import Placement, place_defects
 from .errors import InputError
 from .fileio import StagedFiles
 from .formats import WrittenFile, output_path, write_structure
+from .neighbours import PairLimitError
 from .recipe import Recipe, load_recipe
 from .structure import Structure
 
@@ -116,7 +117,14 @@ def make(recipe: Recipe, out_dir: str | os.PathLike, *, force: bool = False,
     check_disk_space(built.plan, out_dir)
     ensure_output_dir(out_dir)
     note("audit")
-    result_audit = audit(built.plan, built.structure, built.placements, workers=workers)
+    try:
+        result_audit = audit(built.plan, built.structure, built.placements, workers=workers)
+    except PairLimitError as exc:  # a size limit of the checks, found before any file is written
+        recipe = built.plan.recipe
+        raise InputError(f"gives {built.structure.n_atoms:,} atoms, too many for the audit's "
+                         f"neighbour search ({exc})", key=f"size.{size_key(recipe)}",
+                         value=size_value(recipe), hint="choose a smaller size",
+                         file=recipe.source) from None
     report_path = Path(out_dir) / f"{recipe.name}.report.json"
     # all files appear together or none do; without force, every name is claimed
     # exclusively, so a second run racing for the same names refuses instead of replacing

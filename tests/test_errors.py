@@ -13,6 +13,8 @@ from pathlib import Path
 import pytest
 import yaml
 
+from conftest import recipe_dict
+
 GOOD = """\
 name: cu-small
 crystal:
@@ -269,3 +271,23 @@ def test_outputs_that_would_not_fit_on_the_disk_are_refused(cli, tmp_path, monke
     result = cli("make", path, "--out", out)
     assert result.exit_code == 2 and "disk" in result.output and "size.repeat" in result.output
     assert not out.exists()
+
+
+def test_a_structure_too_large_for_the_audit_exits_2_before_writing(cli, recipe_file, tmp_path,
+                                                                    monkeypatch):
+    """When the audit's neighbour search refuses its pair budget (a structure too
+    large for the checks, as above 268M grid sites), make names the size key and
+    writes nothing; the refusal is simulated here, a real one takes tens of GB."""
+    from cellbuild import pipeline
+    from cellbuild.neighbours import PairLimitError
+
+    def refuse(*args, **kwargs):
+        raise PairLimitError(1.8e8, 3.07, 50_000_000, "a neighbour search handles")
+
+    monkeypatch.setattr(pipeline, "audit", refuse)
+    out = tmp_path / "out"
+    result = cli("make", recipe_file(recipe_dict()), "--out", out)
+    assert result.exit_code == 2
+    assert "size.repeat" in result.output and "audit" in result.output
+    assert len(result.output.strip().splitlines()) == 1
+    assert not out.exists() or not any(out.iterdir())
