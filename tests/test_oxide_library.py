@@ -7,7 +7,6 @@ formats), pymatgen (CIF), spglib (the space group the report gives) and LAMMPS
 """
 from __future__ import annotations
 
-import json
 from collections import Counter
 from pathlib import Path
 
