@@ -168,6 +168,7 @@ def _ideal_crystal(crystal: Crystal) -> dict:
     structures of one crystal measures it once per process. Callers copy the
     returned dict before changing it.
     """
+    crystal = crystal.parent or crystal  # facts of the crystal, not of an oriented box
     cell = replicate(crystal, (1, 1, 1), symbols=tuple(dict.fromkeys(crystal.elements)))
     d_nn, _, _ = neighbours.min_distance(cell.cell, cell.positions, workers=1)
     counts = counts_within(cell, crystal, workers=1)

@@ -163,12 +163,35 @@ def _reference_constant(recipe: Recipe) -> float:
     return float(state["a"])
 
 
+def _recut(recipe: Recipe, crystal: Crystal) -> Crystal:
+    """The crystal in the repeat unit the recipe asks: an oriented box
+    (``crystal.axes``), a supercell matrix (``size.matrix``), or its own cell."""
+    from .orientation import oriented, with_matrix
+
+    axes, matrix = recipe.crystal.axes, recipe.size.matrix
+    if axes is not None and matrix is not None:
+        raise InputError("cannot be given with crystal.axes", key="size.matrix",
+                         value=[list(r) for r in matrix],
+                         hint="orient with axes and repeat, or give a matrix on the cubic cell",
+                         file=recipe.source)
+    try:
+        if axes is not None:
+            return oriented(crystal, axes)
+        if matrix is not None:
+            return with_matrix(crystal, matrix)
+    except InputError as exc:
+        raise exc.located(recipe.source) from None
+    return crystal
+
+
 def choose_repeat(recipe: Recipe, crystal: Crystal) -> tuple[int, int, int]:
     """Cells per axis from ``size``: as given, nearest atom count, or minimum length
     (per axis, the smallest n whose n cell-vector lengths reach it)."""
     size = recipe.size
     if size.repeat is not None:
         return size.repeat
+    if size.matrix is not None:  # the matrix is the whole supercell
+        return (1, 1, 1)
     if size.atoms is not None:
         return compact_repeat(size.atoms, crystal.n_basis)
     assert size.min_length is not None
@@ -228,6 +251,7 @@ def resolve(recipe: Recipe, *, strict: bool = False) -> Plan:
     else:
         crystal = resolve_crystal(recipe.crystal.lattice, a, recipe.crystal.species,
                                   crystal_parameters(recipe))
+    crystal = _recut(recipe, crystal)
     warnings = list(_spacing_warnings(recipe, crystal))
     if not 1.0 <= a <= 20.0 and recipe.crystal.source_crystal is None:  # a CIF's own cell
         message = f"lattice constant {a:.4g} Angstrom is outside the plausible range 1 to 20"
@@ -366,12 +390,13 @@ def _human(n: float) -> str:
 
 def size_key(recipe: Recipe) -> str:
     size = recipe.size
-    return "repeat" if size.repeat else "atoms" if size.atoms else "min_length"
+    return ("repeat" if size.repeat else "atoms" if size.atoms else
+            "matrix" if size.matrix else "min_length")
 
 
 def size_value(recipe: Recipe):
     size = recipe.size
-    value = size.repeat or size.atoms or size.min_length
+    value = size.repeat or size.atoms or size.min_length or size.matrix
     return list(value) if isinstance(value, tuple) else value
 
 

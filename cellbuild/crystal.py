@@ -59,6 +59,11 @@ class Crystal:
         occupancy: for a crystal from a CIF, ``(label, ((element, occupancy),
             ...))`` per site label; :attr:`elements` holds each label's majority
             element, the rest is placed as defects (:mod:`cellbuild.defect_plan`).
+        parent: for a crystal re-cut into an oriented box or a supercell matrix
+            (:mod:`cellbuild.orientation`), the crystal in its conventional cell;
+            None otherwise.
+        unit_rows: with ``parent``, the rows of this cell in the parent's
+            conventional fractions.
     """
 
     prototype: str
@@ -78,6 +83,8 @@ class Crystal:
     site_cutoff: tuple[float, ...]
     parameters: tuple[tuple[str, float], ...] = ()
     occupancy: tuple[tuple[str, tuple[tuple[str, float], ...]], ...] = ()
+    parent: "Crystal | None" = None
+    unit_rows: tuple[tuple[float, float, float], ...] | None = None
 
     @property
     def n_basis(self) -> int:
@@ -233,13 +240,13 @@ def _crystal(prototype, title, a, cell, basis, labels, on, interstitials, space_
         sublattice=tuple(labels), elements=tuple(on[label] for label in labels),
         site_frac=site_frac, site_kind=tuple(kinds), space_group=space_group,
         shells=scaled, audit_cutoff=cutoff,
-        offsets=_neighbour_offsets(cell, site_frac,
+        offsets=neighbour_offsets(cell, site_frac,
                                    _grid_cutoffs(len(site_frac), cutoff, site_cutoff)),
         first_shells=in_angstrom, site_cutoff=tuple(float(c) for c in site_cutoff),
     )
 
 
-def _neighbour_offsets(cell: np.ndarray, frac: np.ndarray, cutoffs: np.ndarray):
+def neighbour_offsets(cell: np.ndarray, frac: np.ndarray, cutoffs: np.ndarray):
     """Grid-site pairs ``(s, cell offset, t)`` with ``t`` within ``cutoffs[s]``
     (Angstrom) of ``s``, through the cell metric."""
     # cells far enough out: the cutoff over the smallest perpendicular width

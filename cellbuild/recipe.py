@@ -60,17 +60,22 @@ def _triple(value, key: str, check, message: str) -> tuple:
 @dataclass(frozen=True)
 class Size:
     """Exactly one of: ``repeat`` (cells per axis), ``atoms`` (target count),
-    ``min_length`` (Angstrom per axis). One number for ``repeat`` or ``min_length``
-    means the same on all three axes."""
+    ``min_length`` (Angstrom per axis), ``matrix`` (integer rows over the
+    conventional cell's vectors, positive determinant). One number for ``repeat``
+    or ``min_length`` means the same on all three axes."""
 
     repeat: tuple[int, int, int] | None = None
     atoms: int | None = None
     min_length: tuple[float, float, float] | None = None
+    matrix: tuple[tuple[int, int, int], ...] | None = None
 
     def __post_init__(self) -> None:
-        which = _exclusive(self, ("repeat", "atoms", "min_length"), "size", required=True)
+        which = _exclusive(self, ("repeat", "atoms", "min_length", "matrix"), "size",
+                           required=True)
         raw = getattr(self, which)
-        if which == "repeat":
+        if which == "matrix":
+            _set(self, which, _matrix(raw))
+        elif which == "repeat":
             _set(self, which, _triple(raw, "size.repeat", lambda x, k: v.integer(x, k, minimum=1),
                                       "must be a list of three whole numbers "
                                       "(or one number for all axes)"))
@@ -79,6 +84,22 @@ class Size:
         else:
             _set(self, which, _triple(raw, "size.min_length", v.number,
                                       "must be a length in Angstrom or a list of three"))
+
+
+def _matrix(value) -> tuple[tuple[int, int, int], ...]:
+    message = "must be three rows of three whole numbers, such as [[1, 1, 0], [-1, 1, 0], [0, 0, 2]]"
+    rows = v.sequence(value, "size.matrix", message)
+    if len(rows) != 3:
+        v.fail("size.matrix", value, message)
+    m = tuple(v.index_triple(row, f"size.matrix[{i}]") for i, row in enumerate(rows))
+    det = (m[0][0] * (m[1][1] * m[2][2] - m[1][2] * m[2][1])
+           - m[0][1] * (m[1][0] * m[2][2] - m[1][2] * m[2][0])
+           + m[0][2] * (m[1][0] * m[2][1] - m[1][1] * m[2][0]))
+    if det <= 0:
+        v.fail("size.matrix", [list(r) for r in m],
+               "has determinant " + str(det) + ("" if det else " (its rows are dependent)"),
+               "give rows with a positive determinant (right-handed; swap two rows if negative)")
+    return m
 
 
 @dataclass(frozen=True)
@@ -287,8 +308,8 @@ class _Checker:
 TOP_KEYS = ("name", "crystal", "size", "seed", "outputs", "defects", "types", "checks",
             "charges", "sweep")
 CRYSTAL_KEYS = ("element", "lattice", "a", "density", "radius", "species", "c", "c_over_a", "u",
-                "cif")
-SIZE_KEYS = ("repeat", "atoms", "min_length")
+                "cif", "axes")
+SIZE_KEYS = ("repeat", "atoms", "min_length", "matrix")
 DEFECT_KEYS = ("vacancies", "schottky", "substitutions", "antisites", "interstitials",
                "min_separation")
 VACANCY_KEYS = ("count", "fraction", "on")

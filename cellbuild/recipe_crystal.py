@@ -28,7 +28,9 @@ class Crystal:
     A prototype of one sublattice (hcp) takes either. Internal parameters:
     ``c`` (Angstrom, needs ``a``) or ``c_over_a`` for hcp, ``u`` for spinel.
     ``cif``: a CIF file (read from ``cif_folder`` when relative, else from the
-    current folder) whose cell and labelled sites make the crystal.
+    current folder) whose cell and labelled sites make the crystal. ``axes``:
+    integer directions (on the crystal's lattice vectors) of the x, y and z edges
+    of an orthogonal box, stored as three triples.
     """
 
     element: str | None
@@ -41,10 +43,13 @@ class Crystal:
     c_over_a: float | None = None
     u: float | None = None
     cif: str | None = None
+    axes: tuple[tuple[int, int, int], ...] | None = None
     cif_folder: str | None = field(default=None, repr=False, compare=False)
     source_crystal: Any = field(default=None, repr=False, compare=False)
 
     def __post_init__(self) -> None:
+        if self.axes is not None:
+            _set(self, "axes", _axes(self.axes))
         if self.cif is not None or self.lattice == "cif":
             self._from_cif()
             return
@@ -152,3 +157,13 @@ class Crystal:
 def _majority(occupants: tuple[tuple[str, float], ...]) -> str:
     """The element with the largest occupancy (the first in sorted order on ties)."""
     return max(occupants, key=lambda pair: pair[1])[0]
+
+
+def _axes(value) -> tuple[tuple[int, int, int], ...]:
+    """``{x: [..], y: [..], z: [..]}`` (or three triples) as three index triples."""
+    hint = "for example axes: {x: [1, -1, 0], y: [1, 1, -2], z: [1, 1, 1]}"
+    if isinstance(value, (tuple, list)) and len(value) == 3:
+        value = dict(zip("xyz", value))
+    if not isinstance(value, dict) or set(value) != {"x", "y", "z"}:
+        v.fail("crystal.axes", value, "must map x, y and z to lattice directions", hint)
+    return tuple(v.index_triple(value[n], f"crystal.axes.{n}") for n in "xyz")

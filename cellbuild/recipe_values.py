@@ -133,3 +133,21 @@ def join(prefix: str, key: str | None) -> str:
     if not prefix:
         return key
     return f"{prefix}{key}" if key.startswith("[") else f"{prefix}.{key}"
+
+
+#: Largest |index| of a direction or supercell-matrix entry.
+MAX_INDEX = 100
+
+
+def index_triple(value: Any, key: str) -> tuple[int, int, int]:
+    """Three whole numbers (a lattice direction or a matrix row), not all zero."""
+    message = "must be a list of three whole numbers, such as [1, -1, 0]"
+    items = sequence(value, key, message)
+    if len(items) != 3:
+        fail(key, value, message)
+    out = tuple(integer(x, f"{key}[{i}]", minimum=-MAX_INDEX) for i, x in enumerate(items))
+    if any(abs(x) > MAX_INDEX for x in out):
+        fail(key, list(out), f"has an index beyond {MAX_INDEX}")
+    if not any(out):
+        fail(key, list(out), "is the zero vector", "give a direction")
+    return out

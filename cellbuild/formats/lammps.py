@@ -29,9 +29,9 @@ carries, so that files of a series share their type numbers. Atom ids are
 A LAMMPS box has ``a`` along x and ``b`` in the xy plane (restricted
 triclinic). A cell not in that form is rotated into it, positions with it; a
 left-handed cell first has ``c`` negated (the same lattice, so positions are
-not mirrored). Positions are wrapped into the box. Tilt factors are written as
-they come out of the cell, not reduced to the shortest equivalent ones: older
-LAMMPS versions refuse a tilt above half the box length (``box tilt large``).
+not mirrored). Tilt factors are reduced to LAMMPS's limits (|xy|, |xz| <= lx/2,
+|yz| <= ly/2) by subtracting whole lattice vectors (the same lattice), and
+positions are wrapped into that box.
 """
 from __future__ import annotations
 
@@ -58,6 +58,7 @@ def write(structure: Structure, handle, title: str) -> None:
     _text.check_codes(structure.species, len(structure.symbols))
     cell = right_handed(structure.cell)
     box = lammps_box(cell)
+    cell, box = reduced_tilts(cell, box)
     handle.write(_header(structure, box, title).encode("ascii"))
     # |coordinate| of a wrapped atom <= sum of |box components| along that axis
     bound = max(sum(abs(v) for v in axis) for axis in box.T.tolist())
@@ -87,6 +88,33 @@ def right_handed(cell: np.ndarray) -> np.ndarray:
     if _text.det3(cell) < 0:
         return cell * np.array([[1.0], [1.0], [-1.0]])
     return cell
+
+
+def reduced_tilts(cell: np.ndarray, box: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+    """The same lattice with LAMMPS's tilt factors within its limits.
+
+    LAMMPS (older versions refuse more, newer warn) wants |xy| <= lx/2,
+    |xz| <= lx/2 and |yz| <= ly/2: b and c lose whole multiples of the vectors
+    before them, the same integer steps applied to ``cell`` (crystal frame) and
+    ``box`` (LAMMPS frame), so positions wrap into the reduced box. A box already
+    within the limits (every orthogonal box) is returned unchanged.
+    """
+    steps = np.eye(3)
+    reduced = box.copy()
+
+    def shift(row: int, by: int, k: float) -> None:
+        reduced[row] -= k * reduced[by]
+        steps[row] -= k * steps[by]
+
+    def over(value: float, limit: float) -> float:
+        return float(np.floor(value / limit + 0.5)) if abs(value) > 0.5 * limit * (1 + 1e-12) else 0.0
+
+    shift(1, 0, over(reduced[1, 0], reduced[0, 0]))  # xy against lx
+    shift(2, 1, over(reduced[2, 1], reduced[1, 1]))  # yz against ly
+    shift(2, 0, over(reduced[2, 0], reduced[0, 0]))  # xz against lx
+    if np.array_equal(steps, np.eye(3)):
+        return cell, box
+    return steps @ cell, reduced
 
 
 def lammps_box(cell: np.ndarray) -> np.ndarray:
