@@ -9,7 +9,7 @@ to the ASE script. The ASE script does the same job with ASE alone: bulk +
 repeat, delete 1 % of the atoms at random, substitute 10 %, neighbour list for
 coordination, write lammps-data. Rock salt and perovskite at about 1M atoms
 (Schottky defects, a 10 % dopant, charges, LAMMPS data) are compared with fcc
-at 1M atoms per atom.
+at 1M atoms per atom, and so is fcc in a box along [1-10], [11-2], [111].
 """
 from __future__ import annotations
 
@@ -55,6 +55,20 @@ outputs: [{{outputs}}]
 charges: {charges}
 defects:
   {defects}
+"""
+
+#: fcc Cu in the box along [1-10], [11-2], [111] (6 atoms per unit), with the
+#: defects of RECIPE, at about the size of the 63^3 cubic box.
+ORIENTED_RECIPE = """\
+name: {name}
+crystal: {{element: Cu, lattice: fcc, a: 3.615, axes: {{x: [1, -1, 0], y: [1, 1, -2], z: [1, 1, 1]}}}}
+size: {{atoms: {n}}}
+seed: 1
+outputs: [{outputs}]
+defects:
+  vacancies: {{fraction: 0.01}}
+  substitutions:
+    - {{element: Ni, fraction: 0.10}}
 """
 
 ASE_SCRIPT = """
@@ -148,6 +162,10 @@ def main() -> None:
         atoms, wall, peak = make_run(work, 63, "lammps-data", args.runs)
         rows.append(("cellbuild make, fcc 63^3, lammps-data", atoms, wall, peak, None))
         fcc_per_atom = wall / atoms
+        o_atoms, o_wall, o_peak = make_run(work, 1000188, "lammps-data", args.runs,
+                                           ORIENTED_RECIPE, "cu111-")
+        rows.append(("cellbuild make, fcc along [111], lammps-data", o_atoms, o_wall, o_peak, None))
+        print(f"oriented fcc: wall per atom / cubic fcc's = {o_wall / o_atoms / fcc_per_atom:.2f}")
         for key, (crystal, n, defects, charges) in COMPOUNDS.items():
             template = COMPOUND_RECIPE.format(crystal=crystal, defects=defects, charges=charges)
             c_atoms, c_wall, c_peak = make_run(work, n, "lammps-data", args.runs, template, key)

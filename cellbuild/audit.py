@@ -263,9 +263,10 @@ def _atoms_per_cell_check(plan: Plan, structure: Structure, placements) -> Check
     cell = (idx[:, 0] * n2 + idx[:, 1]) * n3 + idx[:, 2]
     per_cell = np.bincount(cell, minlength=plan.n_cells)
     z = crystal.n_basis
+    unit = "conventional cell" if crystal.parent is None else "repeat unit"
     low, high = int(per_cell.min()), int(per_cell.max())
     return Check("atoms_per_cell", low == high == z,
-                 f"{low}..{high} lattice sites per conventional cell from coordinates "
+                 f"{low}..{high} lattice sites per {unit} from coordinates "
                  f"(vacant sites counted); the basis has {z}")
 
 

@@ -200,12 +200,19 @@ def _plan_text(p: dict) -> str:
     lines = [
         f"{p['name']}: {p['lattice']} {_species_text(p)}",
         f"  lattice constant  {p['lattice_constant']:.6f} A ({p['lattice_constant_source']})",
-        f"  repeat            {' x '.join(map(str, p['repeat']))} conventional cells",
+        f"  repeat            {' x '.join(map(str, p['repeat']))} "
+        + ("oriented boxes" if p["axes"] else "cells of the matrix" if p["matrix"]
+           else "conventional cells"),
         f"  box               {' x '.join(f'{x:.4f}' for x in p['box'])} A",
         f"  atoms             {p['n_atoms']:,} ({p['n_sites']:,} lattice sites)",
     ]
     if p["size_note"]:
         lines.append(f"  note: {p['size_note']}")
+    if p["axes"]:
+        lines.append("  axes              " + ", ".join(
+            f"{n} [{' '.join(map(str, a))}]" for n, a in p["axes"].items()))
+    if p["matrix"]:
+        lines.append("  matrix            " + " ".join(str(r) for r in p["matrix"]))
     if p["cif"]:
         lines.append(f"  from CIF          {p['cif']}")
     for name, value in p["parameters"].items():

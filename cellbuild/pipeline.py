@@ -172,7 +172,10 @@ def make_report(built: Built, result: Audit, outputs: dict[str, WrittenFile],
         "cif": recipe.crystal.cif,
         "lattice_constant": plan.lattice_constant,
         "lattice_constant_source": plan.lattice_constant_source,
+        "axes": _axes(recipe),
+        "matrix": [list(r) for r in recipe.size.matrix] if recipe.size.matrix else None,
         "repeat": list(plan.repeat),
+        "cell": structure.cell.tolist(),
         "size_note": plan.size_note,
         "n_atoms": structure.n_atoms,
         "composition": v["composition"],
@@ -206,6 +209,12 @@ def make_report(built: Built, result: Audit, outputs: dict[str, WrittenFile],
         "recipe_sha256": recipe_sha256,
     }
     return report
+
+
+def _axes(recipe: Recipe) -> dict | None:
+    """The box's edge directions as given, or None for the crystal's own cell."""
+    axes = recipe.crystal.axes
+    return None if axes is None else {n: list(a) for n, a in zip("xyz", axes)}
 
 
 def defect_sites(built: Built) -> dict:

@@ -22,8 +22,12 @@ def describe(plan: Plan) -> dict:
         "cif": recipe.crystal.cif,
         "lattice_constant": plan.lattice_constant,
         "lattice_constant_source": plan.lattice_constant_source,
+        "axes": None if recipe.crystal.axes is None else {
+            n: list(a) for n, a in zip("xyz", recipe.crystal.axes)},
+        "matrix": [list(r) for r in recipe.size.matrix] if recipe.size.matrix else None,
         "repeat": list(plan.repeat),
         "box": list(plan.box),
+        "cell": plan.crystal.supercell(plan.repeat).tolist(),
         "n_sites": plan.n_sites,
         "n_atoms": n_atoms,
         "target_atoms": recipe.size.atoms,
