@@ -169,12 +169,22 @@ def _recut(recipe: Recipe, crystal: Crystal) -> Crystal:
     from .orientation import oriented, with_matrix
 
     axes, matrix = recipe.crystal.axes, recipe.size.matrix
+    if recipe.surface is not None and matrix is not None:
+        raise InputError("cannot be given with a surface", key="size.matrix",
+                         value=[list(r) for r in matrix], hint="give size.repeat [nx, ny, 1]",
+                         file=recipe.source)
     if axes is not None and matrix is not None:
         raise InputError("cannot be given with crystal.axes", key="size.matrix",
                          value=[list(r) for r in matrix],
                          hint="orient with axes and repeat, or give a matrix on the cubic cell",
                          file=recipe.source)
     try:
+        if recipe.surface is not None:
+            from .surfaces import slab
+
+            s = recipe.surface
+            return slab(crystal, s.miller, s.layers, s.vacuum, s.termination, axes,
+                        recipe.charge_of())
         if axes is not None:
             return oriented(crystal, axes)
         if matrix is not None:
@@ -253,6 +263,10 @@ def resolve(recipe: Recipe, *, strict: bool = False) -> Plan:
                                   crystal_parameters(recipe))
     crystal = _recut(recipe, crystal)
     warnings = list(_spacing_warnings(recipe, crystal))
+    if crystal.surface is not None and crystal.surface["polar"]:
+        warnings.append(f"the ({' '.join(map(str, recipe.surface.miller))}) planes are polar: "
+                        "they differ from the slab's composition (or charge), so the slab "
+                        "carries a dipole along z")
     if not 1.0 <= a <= 20.0 and recipe.crystal.source_crystal is None:  # a CIF's own cell
         message = f"lattice constant {a:.4g} Angstrom is outside the plausible range 1 to 20"
         if strict:

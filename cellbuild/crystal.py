@@ -64,6 +64,8 @@ class Crystal:
             None otherwise.
         unit_rows: with ``parent``, the rows of this cell in the parent's
             conventional fractions.
+        surface: for a slab (:mod:`cellbuild.surfaces`), its facts per in-plane
+            period (area, planes, spacings, polarity); None for bulk.
     """
 
     prototype: str
@@ -85,6 +87,7 @@ class Crystal:
     occupancy: tuple[tuple[str, tuple[tuple[str, float], ...]], ...] = ()
     parent: "Crystal | None" = None
     unit_rows: tuple[tuple[float, float, float], ...] | None = None
+    surface: dict | None = None
 
     @property
     def n_basis(self) -> int:

@@ -32,8 +32,12 @@ from .errors import InputError
 MAX_UNIT_SITES = 3000
 #: Fractional tolerance for sites on the unit's faces and for centrings.
 _TOL = 1e-7
+#: Fractions q/k in (0, 1], smallest first: the steps tried along a direction
+#: (centring denominators of real cells are 2, 3, 4 or 6; 48 leaves room).
+_STEPS = np.array(sorted({q / k for k in range(1, 49) for q in range(1, k + 1)}))
 
 
+@lru_cache(maxsize=64)
 def centrings(crystal: Crystal) -> np.ndarray:
     """(k, 3) translations in conventional-cell fractions (0 first) that map the
     crystal's grid onto itself, each site onto one of the same kind, sublattice and
@@ -64,14 +68,11 @@ def shortest_translation(crystal: Crystal, direction, key: str) -> np.ndarray:
     g = math.gcd(*[abs(int(x)) for x in d])
     d = d // g
     shifts = centrings(crystal)
-    # fractions q/k in (0, 1], smallest first (centring denominators of real
-    # cells are 2, 3, 4 or 6; 48 leaves room)
-    steps = sorted({q / k for k in range(1, 49) for q in range(1, k + 1)})
-    for step in steps:
-        t = np.mod(d * step, 1.0)
-        t[t > 1 - _TOL] = 0.0
-        if np.any(np.all(np.abs(shifts - t) < _TOL, axis=1)):
-            return d * step
+    t = np.mod(d[None, :] * _STEPS[:, None], 1.0)  # (steps, 3)
+    t[t > 1 - _TOL] = 0.0
+    hit = np.all(np.abs(t[:, None, :] - shifts[None, :, :]) < _TOL, axis=2).any(axis=1)
+    if hit.any():
+        return d * _STEPS[int(np.argmax(hit))]
     raise InputError(f"has no lattice translation along {list(direction)} within 48 steps",
                      key=key, value=list(direction), hint="give a lattice direction")
 

@@ -176,6 +176,7 @@ def make_report(built: Built, result: Audit, outputs: dict[str, WrittenFile],
         "matrix": [list(r) for r in recipe.size.matrix] if recipe.size.matrix else None,
         "repeat": list(plan.repeat),
         "cell": structure.cell.tolist(),
+        "surface": _surface(plan),
         "size_note": plan.size_note,
         "n_atoms": structure.n_atoms,
         "composition": v["composition"],
@@ -209,6 +210,15 @@ def make_report(built: Built, result: Audit, outputs: dict[str, WrittenFile],
         "recipe_sha256": recipe_sha256,
     }
     return report
+
+
+def _surface(plan: Plan) -> dict | None:
+    """The slab's facts for the whole box (area in Angstrom^2), or None for bulk."""
+    facts = plan.crystal.surface
+    if facts is None:
+        return None
+    nx, ny, _ = plan.repeat
+    return {**facts, "area": facts["area"] * nx * ny}
 
 
 def _axes(recipe: Recipe) -> dict | None:

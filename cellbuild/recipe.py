@@ -30,7 +30,7 @@ from .yamlread import load_yaml, parse_yaml
 
 
 __all__ = ["Amount", "Antisite", "Checks", "Crystal", "Defects", "Interstitial", "Recipe",
-           "Schottky", "Size", "Substitution", "Vacancies", "load_recipe", "load_yaml", "parse_recipe", "parse_yaml"]
+           "Schottky", "Size", "Substitution", "Surface", "Vacancies", "load_recipe", "load_yaml", "parse_recipe", "parse_yaml"]
 
 FORMAT_KEYS = ("lammps-data", "cif", "xyz", "poscar")
 NAME_PATTERN = re.compile(r"^[A-Za-z0-9_.-]{1,200}$")
@@ -103,6 +103,27 @@ def _matrix(value) -> tuple[tuple[int, int, int], ...]:
 
 
 @dataclass(frozen=True)
+class Surface:
+    """A slab: ``layers`` atomic planes normal to ``miller`` with ``vacuum`` Angstrom
+    from the top plane to the image of the bottom one; ``termination`` names the
+    sublattice of the top plane."""
+
+    miller: tuple[int, int, int]
+    layers: int
+    vacuum: float
+    termination: str | None = None
+
+    def __post_init__(self) -> None:
+        _set(self, "miller", v.index_triple(self.miller, "surface.miller"))
+        _set(self, "layers", v.integer(self.layers, "surface.layers", minimum=1))
+        _set(self, "vacuum", v.number(self.vacuum, "surface.vacuum", positive=False))
+        if self.vacuum < 0:
+            v.fail("surface.vacuum", self.vacuum, "must be at least 0")
+        if self.termination is not None:
+            v.text(self.termination, "surface.termination")
+
+
+@dataclass(frozen=True)
 class Checks:
     """Audit settings. ``min_distance`` in Angstrom; None: half the nearest-neighbour
     distance. ``physical_spacing``: refuse a nearest-neighbour distance outside the
@@ -135,6 +156,7 @@ class Recipe:
     checks: Checks = field(default_factory=Checks)
     source: str | None = None
     charges: tuple[tuple[str, float], ...] | None = None
+    surface: Surface | None = None
 
     def __post_init__(self) -> None:
         name = v.text(self.name, "name")
@@ -157,6 +179,13 @@ class Recipe:
                 v.fail(f"defects.interstitials[{i}].site", item.site,
                        f"is not an interstitial site of {self.crystal.lattice}",
                        sites_hint(self.crystal.lattice, sites))
+        if self.surface is not None:
+            if not isinstance(self.surface, Surface):
+                v.fail("surface", self.surface, f"must be a Surface, not {v.kind(self.surface)}")
+            if self.size.repeat is None or self.size.repeat[2] != 1:
+                v.fail("size", {k: x for k, x in vars(self.size).items() if x is not None},
+                       "must be a repeat with 1 along z for a surface",
+                       "size: {repeat: [4, 4, 1]} (in-plane repeats; surface.layers sets the height)")
         needed = self._used_elements()
         if self.types is not None:
             missing = [e for e in needed if e not in self.types]
@@ -306,7 +335,7 @@ class _Checker:
 
 
 TOP_KEYS = ("name", "crystal", "size", "seed", "outputs", "defects", "types", "checks",
-            "charges", "sweep")
+            "charges", "surface", "sweep")
 CRYSTAL_KEYS = ("element", "lattice", "a", "density", "radius", "species", "c", "c_over_a", "u",
                 "cif", "axes")
 SIZE_KEYS = ("repeat", "atoms", "min_length", "matrix")
@@ -318,6 +347,7 @@ INTERSTITIAL_KEYS = ("element", "site", "count", "fraction")
 ANTISITE_KEYS = ("pair", "count")
 SCHOTTKY_KEYS = ("count",)
 CHECK_KEYS = ("min_distance", "physical_spacing", "net_charge")
+SURFACE_KEYS = ("miller", "layers", "vacuum", "termination")
 
 
 def parse_recipe(data: Any, lines: Lines | None = None, file: str | None = None, *,
@@ -352,6 +382,14 @@ def parse_recipe(data: Any, lines: Lines | None = None, file: str | None = None,
     fields = {k: data[k] for k in ("seed", "outputs", "types") if k in data}
     if "charges" in data:
         fields["charges"] = tuple(c.mapping(data["charges"], "charges").items())
+    if "surface" in data:
+        surface = c.mapping(data["surface"], "surface")
+        c.known_keys(surface, SURFACE_KEYS, "surface")
+        for need in ("miller", "layers", "vacuum"):
+            if need not in surface:
+                c.fail_missing(f"surface.{need}", "is required",
+                               "for example surface: {miller: [1, 1, 1], layers: 6, vacuum: 15.0}")
+        fields["surface"] = c.make(Surface, "", **surface)
     return c.make(Recipe, "", name=name, crystal=crystal, size=size, defects=defects,
                   checks=checks, source=file, **fields)
 
