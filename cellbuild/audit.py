@@ -151,7 +151,8 @@ def audit(plan: Plan, structure: Structure, placements: list[Placement],
               for p in placements if p.kind == "vacancy"]
     values["space_group"] = structure_spacegroup(
         structure, np.concatenate(vacant) if vacant else None)
-    if not placements and values["space_group"]["number"] is not None and crystal.surface is None:
+    bulk = crystal.surface is None and crystal.boundary is None  # interfaces have their own
+    if not placements and values["space_group"]["number"] is not None and bulk:
         # a check only where it can fail: a perfect structure small enough for spglib
         checks.append(_space_group_check(values["space_group"], values["ideal_crystal"]))
     return Audit(tuple(checks), values)

@@ -169,8 +169,8 @@ def _recut(recipe: Recipe, crystal: Crystal) -> Crystal:
     from .orientation import oriented, with_matrix
 
     axes, matrix = recipe.crystal.axes, recipe.size.matrix
-    if recipe.surface is not None and matrix is not None:
-        raise InputError("cannot be given with a surface", key="size.matrix",
+    if (recipe.surface or recipe.grain_boundary) is not None and matrix is not None:
+        raise InputError("cannot be given with a surface or a grain boundary", key="size.matrix",
                          value=[list(r) for r in matrix], hint="give size.repeat [nx, ny, 1]",
                          file=recipe.source)
     if axes is not None and matrix is not None:
@@ -179,6 +179,15 @@ def _recut(recipe: Recipe, crystal: Crystal) -> Crystal:
                          hint="orient with axes and repeat, or give a matrix on the cubic cell",
                          file=recipe.source)
     try:
+        if recipe.grain_boundary is not None:
+            from .boundaries import tilt_boundary
+
+            g = recipe.grain_boundary
+            if axes is not None:
+                raise InputError("cannot be given with a grain boundary", key="crystal.axes",
+                                 value={n: list(d) for n, d in zip("xyz", axes)},
+                                 hint="the boundary's axis and plane set the box")
+            return tilt_boundary(crystal, g.axis, g.plane, g.grains, g.vacuum, g.min_distance)
         if recipe.surface is not None:
             from .surfaces import slab
 

@@ -66,6 +66,8 @@ class Crystal:
             conventional fractions.
         surface: for a slab (:mod:`cellbuild.surfaces`), its facts per in-plane
             period (area, planes, spacings, polarity); None for bulk.
+        boundary: for a bicrystal (:mod:`cellbuild.boundaries`), its facts per
+            in-plane period (misorientation, Sigma, atoms removed); None otherwise.
     """
 
     prototype: str
@@ -88,6 +90,7 @@ class Crystal:
     parent: "Crystal | None" = None
     unit_rows: tuple[tuple[float, float, float], ...] | None = None
     surface: dict | None = None
+    boundary: dict | None = None
 
     @property
     def n_basis(self) -> int:

@@ -177,6 +177,7 @@ def make_report(built: Built, result: Audit, outputs: dict[str, WrittenFile],
         "repeat": list(plan.repeat),
         "cell": structure.cell.tolist(),
         "surface": _surface(plan),
+        "grain_boundary": _boundary(plan),
         "size_note": plan.size_note,
         "n_atoms": structure.n_atoms,
         "composition": v["composition"],
@@ -219,6 +220,15 @@ def _surface(plan: Plan) -> dict | None:
         return None
     nx, ny, _ = plan.repeat
     return {**facts, "area": facts["area"] * nx * ny}
+
+
+def _boundary(plan: Plan) -> dict | None:
+    """The bicrystal's facts for the whole box (area in Angstrom^2, atoms removed)."""
+    facts = plan.crystal.boundary
+    if facts is None:
+        return None
+    per = plan.repeat[0] * plan.repeat[1]
+    return {**facts, "area": facts["area"] * per, "removed": facts["removed_per_period"] * per}
 
 
 def _axes(recipe: Recipe) -> dict | None:

@@ -30,7 +30,7 @@ from .yamlread import load_yaml, parse_yaml
 
 
 __all__ = ["Amount", "Antisite", "Checks", "Crystal", "Defects", "Interstitial", "Recipe",
-           "Schottky", "Size", "Substitution", "Surface", "Vacancies", "load_recipe", "load_yaml", "parse_recipe", "parse_yaml"]
+           "GrainBoundary", "Schottky", "Size", "Substitution", "Surface", "Vacancies", "load_recipe", "load_yaml", "parse_recipe", "parse_yaml"]
 
 FORMAT_KEYS = ("lammps-data", "cif", "xyz", "poscar")
 NAME_PATTERN = re.compile(r"^[A-Za-z0-9_.-]{1,200}$")
@@ -124,6 +124,31 @@ class Surface:
 
 
 @dataclass(frozen=True)
+class GrainBoundary:
+    """A symmetric tilt boundary: grains mirrored about the ``plane`` (Miller
+    indices) containing the tilt ``axis``; ``grains`` repeat units per grain
+    (None: 20 A), ``vacuum`` Angstrom (0: two boundaries, fully periodic),
+    ``min_distance`` Angstrom below which atoms across a boundary are removed."""
+
+    axis: tuple[int, int, int]
+    plane: tuple[int, int, int]
+    grains: int | None = None
+    vacuum: float = 0.0
+    min_distance: float | None = None
+
+    def __post_init__(self) -> None:
+        _set(self, "axis", v.index_triple(self.axis, "grain_boundary.axis"))
+        _set(self, "plane", v.index_triple(self.plane, "grain_boundary.plane"))
+        if self.grains is not None:
+            _set(self, "grains", v.integer(self.grains, "grain_boundary.grains", minimum=1))
+        _set(self, "vacuum", v.number(self.vacuum, "grain_boundary.vacuum", positive=False))
+        if self.vacuum < 0:
+            v.fail("grain_boundary.vacuum", self.vacuum, "must be at least 0")
+        if self.min_distance is not None:
+            _set(self, "min_distance", v.number(self.min_distance, "grain_boundary.min_distance"))
+
+
+@dataclass(frozen=True)
 class Checks:
     """Audit settings. ``min_distance`` in Angstrom; None: half the nearest-neighbour
     distance. ``physical_spacing``: refuse a nearest-neighbour distance outside the
@@ -157,6 +182,7 @@ class Recipe:
     source: str | None = None
     charges: tuple[tuple[str, float], ...] | None = None
     surface: Surface | None = None
+    grain_boundary: GrainBoundary | None = None
 
     def __post_init__(self) -> None:
         name = v.text(self.name, "name")
@@ -179,13 +205,18 @@ class Recipe:
                 v.fail(f"defects.interstitials[{i}].site", item.site,
                        f"is not an interstitial site of {self.crystal.lattice}",
                        sites_hint(self.crystal.lattice, sites))
-        if self.surface is not None:
-            if not isinstance(self.surface, Surface):
-                v.fail("surface", self.surface, f"must be a Surface, not {v.kind(self.surface)}")
+        if self.surface is not None and self.grain_boundary is not None:
+            v.fail("grain_boundary", "...", "cannot be given with surface",
+                   "a boundary with free surfaces: grain_boundary.vacuum")
+        for key, cls in (("surface", Surface), ("grain_boundary", GrainBoundary)):
+            item = getattr(self, key)
+            if item is not None and not isinstance(item, cls):
+                v.fail(key, item, f"must be a {cls.__name__}, not {v.kind(item)}")
+        if self.surface is not None or self.grain_boundary is not None:
             if self.size.repeat is None or self.size.repeat[2] != 1:
                 v.fail("size", {k: x for k, x in vars(self.size).items() if x is not None},
-                       "must be a repeat with 1 along z for a surface",
-                       "size: {repeat: [4, 4, 1]} (in-plane repeats; surface.layers sets the height)")
+                       "must be a repeat with 1 along z for a surface or a grain boundary",
+                       "size: {repeat: [4, 4, 1]} (in-plane repeats; the layers or grains set the height)")
         needed = self._used_elements()
         if self.types is not None:
             missing = [e for e in needed if e not in self.types]
@@ -335,7 +366,7 @@ class _Checker:
 
 
 TOP_KEYS = ("name", "crystal", "size", "seed", "outputs", "defects", "types", "checks",
-            "charges", "surface", "sweep")
+            "charges", "surface", "grain_boundary", "sweep")
 CRYSTAL_KEYS = ("element", "lattice", "a", "density", "radius", "species", "c", "c_over_a", "u",
                 "cif", "axes")
 SIZE_KEYS = ("repeat", "atoms", "min_length", "matrix")
@@ -348,6 +379,7 @@ ANTISITE_KEYS = ("pair", "count")
 SCHOTTKY_KEYS = ("count",)
 CHECK_KEYS = ("min_distance", "physical_spacing", "net_charge")
 SURFACE_KEYS = ("miller", "layers", "vacuum", "termination")
+BOUNDARY_KEYS = ("axis", "plane", "grains", "vacuum", "min_distance")
 
 
 def parse_recipe(data: Any, lines: Lines | None = None, file: str | None = None, *,
@@ -390,6 +422,14 @@ def parse_recipe(data: Any, lines: Lines | None = None, file: str | None = None,
                 c.fail_missing(f"surface.{need}", "is required",
                                "for example surface: {miller: [1, 1, 1], layers: 6, vacuum: 15.0}")
         fields["surface"] = c.make(Surface, "", **surface)
+    if "grain_boundary" in data:
+        gb = c.mapping(data["grain_boundary"], "grain_boundary")
+        c.known_keys(gb, BOUNDARY_KEYS, "grain_boundary")
+        for need in ("axis", "plane"):
+            if need not in gb:
+                c.fail_missing(f"grain_boundary.{need}", "is required",
+                               "for example grain_boundary: {axis: [0, 0, 1], plane: [3, 1, 0]}")
+        fields["grain_boundary"] = c.make(GrainBoundary, "", **gb)
     return c.make(Recipe, "", name=name, crystal=crystal, size=size, defects=defects,
                   checks=checks, source=file, **fields)
 
