@@ -112,11 +112,35 @@ def analyse(structure: Structure, *, file: str, cutoff: float | None = None,
         InputError: when a pair search would exceed its bounds (atoms on top of
             one another by the million, a ``--cutoff`` far beyond the cell).
     """
+    from .slab_detect import find_vacuum, with_bulk_view
+
     try:
-        return _analyse(structure, file, cutoff, expect, potential_cutoff, workers, source,
-                        partial_occupancy)
+        result, distribution = _analyse(structure, file, cutoff, expect, potential_cutoff,
+                                        workers, source, partial_occupancy)
+        slab = find_vacuum(structure)
+        result["slab"] = None
+        if slab is not None:  # surfaces are not defects: judge the lattice without the gap
+            result = with_bulk_view(result, _bulk_view(structure, slab, file, cutoff, expect,
+                                                       workers), slab)
+        return result, distribution
     except neighbours.PairLimitError as exc:
         raise InputError(f"holds {exc}, too many to examine", file=file) from None
+
+
+def _bulk_view(structure, slab, file, cutoff, expect, workers) -> dict:
+    """The analysis of the slab with its gap closed, leaving out up to
+    MAX_DROPPED_PLANES top planes: the first view with a lattice and no
+    vacancy-like atoms, else the first with a lattice, else the whole slab's."""
+    from .slab_detect import MAX_DROPPED_PLANES, closed
+
+    views = []
+    for drop in range(MAX_DROPPED_PLANES + 1):
+        view, _ = _analyse(closed(structure, slab, drop), file, cutoff, expect, None, workers,
+                           None, None)
+        if view["lattice"] and not (view["defects"] or {}).get("vacancy_like"):
+            return view
+        views.append(view)
+    return next((v for v in views if v["lattice"]), views[0])
 
 
 def _analyse(structure, file, cutoff, expect, potential_cutoff, workers, source,
@@ -503,6 +527,10 @@ def describe(result: dict) -> str:
     for symbol, hist in coordination["by_species"].items():
         counts = ", ".join(f"{n:,} atoms with {k}" for k, n in hist.items())
         lines.append(f"  coordination  {symbol}: {counts}")
+    if result.get("slab"):
+        from .slab_detect import slab_text
+
+        lines.append("  slab          " + slab_text(result["slab"]))
     lines.append("  lattice       " + _lattice_text(result))
     if result["defects"] is not None:
         lines.append("  defects       " + _defects_text(result["defects"]))

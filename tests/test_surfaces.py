@@ -156,3 +156,33 @@ def test_bad_surfaces_exit_2_in_one_sentence(cli, recipe_file, tmp_path, crystal
     assert f"`{key}" in result.output and "Traceback" not in result.output, result.output
     assert len(result.output.strip().splitlines()) == 1
     assert not out.exists()
+
+
+@pytest.mark.parametrize("crystal,miller,layers,lattice", [
+    (CU, [1, 1, 1], 7, "fcc"), (CU, [1, 0, 0], 7, "fcc"), (CU, [1, 1, 0], 6, "fcc"),
+    (W, [1, 1, 0], 5, "bcc"),
+    ({"lattice": "rocksalt", "species": {"A": "Mg", "B": "O"}, "a": 4.212}, [1, 0, 0], 5,
+     "rocksalt"),
+])
+def test_inspect_recognises_a_slab_and_its_lattice_not_defects(cli, recipe_file, tmp_path,
+                                                                crystal, miller, layers, lattice):
+    result, report, out = _make(cli, recipe_file, tmp_path, crystal,
+                                {"miller": miller, "layers": layers, "vacuum": 12.0},
+                                outputs=["cif", "xyz"])
+    assert result.exit_code == 0
+    for name in ("x.cif", "x.xyz"):
+        found = json.loads(cli("inspect", out / name, "--json").output)
+        assert found["slab"]["axis"] == "c"
+        assert found["slab"]["vacuum"] == pytest.approx(12.0, abs=1e-6)
+        spacing = report["surface"]["interlayer_spacing"][0]
+        assert found["slab"]["plane_spacing"] == pytest.approx(spacing, abs=1e-4)
+        assert found["lattice"] == lattice
+        assert found["defects"]["vacancy_like"] == 0, found["defects"]
+
+
+def test_inspect_finds_no_slab_in_a_bulk_box(cli, recipe_file, tmp_path):
+    data = {"name": "bulk", "crystal": CU, "size": {"repeat": 3}, "outputs": ["xyz"]}
+    out = tmp_path / "out"
+    assert cli("make", recipe_file(data), "--out", out).exit_code == 0
+    found = json.loads(cli("inspect", out / "bulk.xyz", "--json").output)
+    assert found["slab"] is None and found["lattice"] == "fcc"

@@ -1,0 +1,100 @@
+"""Slabs in files: a vacuum gap along one cell vector, found from the atoms.
+
+:func:`find_vacuum` looks, along each cell vector, for the widest empty band of
+the atoms' fractional coordinates (periodic); a band wider than
+``MIN_VACUUM`` Angstrom (measured across the cell, perpendicular to the other two
+vectors) makes the structure a slab. :func:`closed` removes the gap: the atoms
+are shifted so the gap ends at the cell face and that cell vector is shortened to
+the slab's thickness plus one spacing between its planes, which gives the bulk
+crystal back where the layers stack in whole periods, so the lattice match of
+``inspect`` sees the crystal the slab was cut from, not its surfaces as defects.
+Lengths in Angstrom.
+"""
+from __future__ import annotations
+
+import numpy as np
+
+from .cellgeom import perpendicular_widths
+from .structure import Structure
+
+#: Narrowest empty band counted as vacuum, Angstrom (about twice the longest
+#: nearest-neighbour distances of solids).
+MIN_VACUUM = 6.0
+#: Atoms within this of each other across the cell vector share a plane, Angstrom.
+_PLANE = 0.05
+
+
+def find_vacuum(structure: Structure) -> dict | None:
+    """``{"axis", "vacuum", "thickness", "plane_spacing", "start"}`` for the widest
+    gap wider than MIN_VACUUM along a cell vector (axis 0, 1, 2 for a, b, c), or None.
+    ``start``: fractional coordinate where the atoms begin after the gap."""
+    if structure.n_atoms < 2:
+        return None
+    frac = np.mod(structure.fractional(), 1.0)
+    widths = perpendicular_widths(structure.cell)
+    best = None
+    for axis in range(3):
+        f = np.sort(frac[:, axis])
+        gaps = np.diff(np.concatenate([f, [f[0] + 1.0]]))
+        k = int(np.argmax(gaps))
+        vacuum = float(gaps[k] * widths[axis])
+        if vacuum > MIN_VACUUM and (best is None or vacuum > best["vacuum"]):
+            heights = np.sort(np.mod(f - f[(k + 1) % len(f)], 1.0)) * widths[axis]
+            steps = np.diff(heights)
+            steps = steps[steps > _PLANE]
+            spacing = float(np.median(steps)) if steps.size else 0.0
+            best = {"axis": "abc"[axis], "vacuum": vacuum,
+                    "thickness": float(heights[-1] - heights[0]),
+                    "plane_spacing": spacing, "start": float(f[(k + 1) % len(f)])}
+    return best
+
+
+def closed(structure: Structure, slab: dict, drop: int = 0) -> Structure:
+    """The slab with its gap closed to one plane spacing (see the module docstring),
+    after leaving out its top ``drop`` planes (so that the planes left stack in
+    whole periods: a 7-plane fcc(100) slab closes into bulk with 6)."""
+    axis = "abc".index(slab["axis"])
+    width = float(perpendicular_widths(structure.cell)[axis])
+    frac = np.mod(structure.fractional(), 1.0)
+    frac[:, axis] = np.mod(frac[:, axis] - slab["start"], 1.0)
+    height = frac[:, axis] * width
+    keep = np.ones(structure.n_atoms, dtype=bool)
+    if drop:
+        levels = np.sort(height)
+        tops = levels[np.concatenate([[True], np.diff(levels) > _PLANE])]  # one per plane
+        if drop >= len(tops):
+            return structure
+        keep = height < tops[-drop] - _PLANE
+    top = float(height[keep].max())
+    scale = (top + slab["plane_spacing"]) / width
+    cell = structure.cell.copy()
+    cell[axis] *= scale
+    frac[:, axis] /= scale
+    return Structure(cell, frac[keep] @ cell, structure.species[keep], structure.symbols)
+
+
+#: Top planes left out, at most, while looking for a whole stacking period.
+MAX_DROPPED_PLANES = 2
+
+
+def with_bulk_view(result: dict, bulk: dict, slab: dict) -> dict:
+    """``result`` of the slab with the lattice, prototype and defects (and the
+    ``expected_lattice`` check) of its closed-gap ``bulk`` view, and ``slab``."""
+    for key in ("lattice", "lattice_match", "prototype", "defects"):
+        result[key] = bulk.get(key)
+    result.pop("prototype_note", None)
+    if "prototype_note" in bulk:
+        result["prototype_note"] = bulk["prototype_note"]
+    views = {c["name"]: c for c in bulk["checks"]}
+    result["checks"] = [views.get("expected_lattice", c) if c["name"] == "expected_lattice" else c
+                        for c in result["checks"]]
+    result["passed"] = all(c["passed"] for c in result["checks"])
+    result["slab"] = {k: v for k, v in slab.items() if k != "start"}
+    return result
+
+
+def slab_text(slab: dict) -> str:
+    """One line for the text summary."""
+    return (f"vacuum {slab['vacuum']:.3f} A along {slab['axis']}, slab {slab['thickness']:.3f} A "
+            f"thick, planes {slab['plane_spacing']:.4f} A apart (lattice and defects judged with "
+            "the gap closed)")
