@@ -203,7 +203,11 @@ def _plan_text(p: dict) -> str:
         f"  repeat            {' x '.join(map(str, p['repeat']))} "
         + ("oriented boxes" if p["axes"] else "cells of the matrix" if p["matrix"]
            else "conventional cells"),
-        f"  box               {' x '.join(f'{x:.4f}' for x in p['box'])} A",
+        f"  box               {' x '.join(f'{x:.4f}' for x in p['box'])} A"
+        + ("" if all(abs(v) < 1e-12 for i, row in enumerate(p["cell"]) for j, v in enumerate(row)
+                     if i != j) else
+           "; vectors " + ", ".join("(" + " ".join(f"{v:.4f}" for v in row) + ")"
+                                    for row in p["cell"])),
         f"  atoms             {p['n_atoms']:,} ({p['n_sites']:,} lattice sites)",
     ]
     if p["size_note"]:
