@@ -61,3 +61,25 @@ print "CHARGE_SUM $(atoms) $(c_total:%.10f)"
     _, atoms, total = next(line for line in screen.splitlines()
                            if line.startswith("CHARGE_SUM ")).split()
     return int(atoms), float(total)
+
+
+def coordination_histogram(data: Path, cutoff: float, cwd: Path) -> dict[str, int]:
+    """{"12": atoms, ...}: LAMMPS's ``compute coord/atom`` within ``cutoff`` (A) for
+    every atom of a data file in atom style atomic."""
+    dump = Path(cwd) / "coordination.dump"
+    run_lammps(f"""units metal
+atom_style atomic
+boundary p p p
+read_data {data}
+pair_style zero {cutoff + 0.5}
+pair_coeff * *
+compute cn all coord/atom cutoff {cutoff}
+dump d all custom 1 {dump} id c_cn
+dump_modify d sort id
+run 0
+""", cwd)
+    import numpy as np
+
+    rows = np.loadtxt(dump, skiprows=9, ndmin=2)
+    counts = np.bincount(rows[:, 1].astype(int))
+    return {str(k): int(v) for k, v in enumerate(counts) if v}

@@ -15,7 +15,7 @@ import math
 import numpy as np
 import pytest
 
-from lammps_run import run_lammps
+from lammps_run import coordination_histogram
 
 CU = {"element": "Cu", "lattice": "fcc", "a": 3.615}
 W = {"element": "W", "lattice": "bcc", "a": 3.165}
@@ -125,20 +125,7 @@ def test_lammps_reads_a_triclinic_matrix_cell_and_counts_like_the_report(cli, re
     # within LAMMPS's limits (LAMMPS read_data documentation)
     assert abs(xy) <= lengths["x"] / 2 + 1e-9 and abs(xz) <= lengths["x"] / 2 + 1e-9
     assert abs(yz) <= lengths["y"] / 2 + 1e-9
-    script = f"""units metal
-atom_style atomic
-boundary p p p
-read_data {out / 'x.lmp'}
-pair_style zero {report['coordination']['cutoff'] + 0.5}
-pair_coeff * *
-compute cn all coord/atom cutoff {report['coordination']['cutoff']}
-dump d all custom 1 {tmp_path / 'cn.dump'} id c_cn
-dump_modify d sort id
-run 0
-"""
-    run_lammps(script, tmp_path)
-    rows = np.loadtxt(tmp_path / "cn.dump", skiprows=9, ndmin=2)
-    got = {str(k): int(v) for k, v in enumerate(np.bincount(rows[:, 1].astype(int))) if v}
+    got = coordination_histogram(out / "x.lmp", report["coordination"]["cutoff"], tmp_path)
     assert got == report["coordination"]["histogram"]
 
 

@@ -17,7 +17,7 @@ import math
 import numpy as np
 import pytest
 
-from lammps_run import run_lammps
+from lammps_run import coordination_histogram
 
 CU = {"element": "Cu", "lattice": "fcc", "a": 3.615}
 W = {"element": "W", "lattice": "bcc", "a": 3.165}
@@ -119,20 +119,7 @@ def test_lammps_reads_the_slab_and_counts_like_the_report(cli, recipe_file, tmp_
                                 {"miller": [1, 1, 0], "layers": 6, "vacuum": 15.0},
                                 outputs=["lammps-data"], defects={"vacancies": {"count": 2}})
     assert result.exit_code == 0 and report["passed"]
-    cutoff = report["coordination"]["cutoff"]
-    run_lammps(f"""units metal
-atom_style atomic
-boundary p p p
-read_data {out / 'x.lmp'}
-pair_style zero {cutoff + 0.5}
-pair_coeff * *
-compute cn all coord/atom cutoff {cutoff}
-dump d all custom 1 {tmp_path / 'cn.dump'} id c_cn
-dump_modify d sort id
-run 0
-""", tmp_path)
-    rows = np.loadtxt(tmp_path / "cn.dump", skiprows=9, ndmin=2)
-    got = {str(k): int(v) for k, v in enumerate(np.bincount(rows[:, 1].astype(int))) if v}
+    got = coordination_histogram(out / "x.lmp", report["coordination"]["cutoff"], tmp_path)
     assert got == report["coordination"]["histogram"]
 
 
