@@ -21,6 +21,7 @@ from .build import (AVOGADRO, ANGSTROM3_TO_CM3, Plan, replicate, site_positions,
                     standard_atomic_weight)
 from .crystal import Crystal
 from .defects import Placement
+from .short_range_order import warren_cowley
 from .structure import Structure
 
 #: Pairs listed in the report when closer than the threshold (more are counted).
@@ -147,6 +148,8 @@ def audit(plan: Plan, structure: Structure, placements: list[Placement],
         f"{within}, from coordinates) that differs from the lattice topology"))
 
     checks.append(_distance_check(recipe, structure, crystal.nearest, values, workers, sites))
+    # a fact of the arrangement, not a check: reported for every mixed sublattice
+    values["short_range_order"] = warren_cowley(structure, crystal, plan.repeat)
     vacant = [site_positions(crystal, plan.repeat, p.site_ids)
               for p in placements if p.kind == "vacancy"]
     values["space_group"] = structure_spacegroup(

@@ -194,6 +194,7 @@ def make_report(built: Built, result: Audit, outputs: dict[str, WrittenFile],
         "min_distance_pair": v["min_distance_pair"],
         "close_pairs": v["close_pairs"],
         "space_group": v["space_group"],
+        "short_range_order": v["short_range_order"],
         "defects": [
             {"kind": p.kind, "element": p.element, "on": p.on, "key": p.key,
              "asked": p.asked, "placed": p.count}
