@@ -53,11 +53,13 @@ from .audit import MAX_CLOSE_PAIRS_LISTED, Check, histogram
 from .build import ANGSTROM3_TO_CM3, AVOGADRO, standard_atomic_weight
 from .errors import InputError
 from .lattice_match import (CROWDED_FRACTION, PATTERN_NAMES, LatticeMatch, defects_note,
-                            first_shell, infer_defects, match_lattice, site_count_reliable)
+                            first_shell, infer_defects, match_lattice, patterns,
+                            site_count_reliable)
 from .pair_shells import PairDistribution, find_shells, pair_distribution
 from .inspect_text import describe  # noqa: F401  (the text summary, importable from here)
 from .prototype_match import expected_names, match_prototype, prototype_text
 from .repeating_unit import repeating_unit, space_group
+from .short_range_order import SHELLS as SRO_SHELLS, warren_cowley_of_file
 from .structure import Structure
 
 __all__ = ["EXPECT_CHOICES", "LatticeMatch", "PairDistribution", "analyse", "density",
@@ -184,6 +186,10 @@ def _analyse(structure, file, cutoff, expect, potential_cutoff, workers, source,
         if not site_count_reliable(match, first, n):
             result["defects"]["estimated_vacancies_from_sites"] = None  # see the note
         result["defects"]["note"] = defects_note(shells, result["defects"], match)
+    result["short_range_order"] = None  # alloys on one lattice; compounds need sublattices
+    if match and not prototype:
+        radii = [r * match.nearest for r in patterns()[match.name].distances[:SRO_SHELLS + 1]]
+        result["short_range_order"] = warren_cowley_of_file(structure, radii)
     result["space_group"], note = space_group(structure)
     if note:
         result["space_group_note"] = note

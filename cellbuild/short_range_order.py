@@ -93,3 +93,45 @@ def warren_cowley(structure, crystal, repeat: tuple[int, int, int],
                       "concentration": {structure.symbols[e]: float(conc[e]) for e in present},
                       "alpha": alphas}
     return out or None
+
+
+#: Centre atoms drawn (seeded) for the alphas of a file: exact up to this many atoms.
+INSPECT_CENTRES = 20_000
+
+
+def warren_cowley_of_file(structure, shell_radii: list[float]) -> dict | None:
+    """Alphas of a structure read from a file whose atoms share one lattice (an
+    alloy): ``shell_radii`` are the ideal shell distances (A); pairs are assigned to
+    the nearest shell within half the gap to its neighbours. Up to INSPECT_CENTRES
+    centres (all atoms when fewer; else a seeded draw, whose count is reported);
+    None with fewer than two species."""
+    from .neighbours import pairs_of
+
+    m = len(structure.symbols)
+    per = np.bincount(structure.species, minlength=m)
+    present = np.flatnonzero(per)
+    if len(present) < 2 or len(shell_radii) < 2:
+        return None
+    radii = np.array(shell_radii[:SHELLS + 1], dtype=float)
+    edges = np.concatenate([[0.5 * radii[0]], 0.5 * (radii[1:] + radii[:-1])])
+    n_shells = len(radii) - 1  # the last radius only bounds the last shell
+    n = structure.n_atoms
+    centres = np.arange(n) if n <= INSPECT_CENTRES else np.sort(
+        np.random.default_rng(0).choice(n, INSPECT_CENTRES, replace=False))
+    i, j, d = pairs_of(structure.cell, structure.positions, centres, float(edges[n_shells]))
+    shell = np.searchsorted(edges, d) - 1  # edges[k] <= d < edges[k + 1]: shell k
+    ok = (shell >= 0) & (shell < n_shells)
+    conc = per / n
+    code = structure.species[i[ok]] * m + structure.species[j[ok]]
+    counts = np.bincount(shell[ok] * m * m + code, minlength=n_shells * m * m)
+    counts = counts.reshape(n_shells, m, m)
+    alphas = {}
+    for x, y in ((x, y) for a, x in enumerate(present) for y in present[a:]):
+        values = []
+        for k in range(n_shells):
+            around = counts[k, x].sum()
+            values.append(float(1.0 - (counts[k, x, y] / around) / conc[y]) if around else None)
+        alphas[f"{structure.symbols[x]}-{structure.symbols[y]}"] = values
+    return {"shells": [float(r) for r in radii[:n_shells]], "centres": int(len(centres)),
+            "concentration": {structure.symbols[e]: float(conc[e]) for e in present},
+            "alpha": alphas}

@@ -83,3 +83,21 @@ def test_one_species_per_sublattice_gives_none(cli, recipe_file, tmp_path):
     out = tmp_path / "out"
     assert cli("make", recipe_file(data), "--out", out).exit_code == 0
     assert json.loads((out / "cu.report.json").read_text())["short_range_order"] is None
+
+
+def test_inspect_gives_the_same_alphas_as_the_report(cli, recipe_file, tmp_path):
+    """A file read back by inspect (no site grid: pairs by distance, ideal shells
+    of the matched lattice) gives the report's alphas exactly, all atoms centres."""
+    data = {"name": "cuni", "seed": 7, "outputs": ["lammps-data", "xyz"],
+            "crystal": {"element": "Cu", "lattice": "fcc", "a": 3.6}, "size": {"repeat": 6},
+            "defects": {"substitutions": [{"element": "Ni", "fraction": 0.3}]}}
+    out = tmp_path / "out"
+    assert cli("make", recipe_file(data), "--out", out).exit_code == 0
+    report = json.loads((out / "cuni.report.json").read_text())["short_range_order"]["A"]
+    for name in ("cuni.xyz", "cuni.lmp"):
+        found = json.loads(cli("inspect", out / name, "--json", "--types", "Cu,Ni")
+                           .output)["short_range_order"]
+        assert found["centres"] == 864
+        assert found["shells"] == pytest.approx(report["shells"])
+        for pair, values in report["alpha"].items():
+            assert found["alpha"][pair] == pytest.approx(values, abs=1e-12), pair
