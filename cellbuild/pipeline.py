@@ -37,6 +37,7 @@ class Built:
     plan: Plan
     structure: Structure
     placements: list[Placement]
+    arrangement: dict | None = None  # the arrangement search's facts, if the recipe asks one
 
 
 @dataclass(frozen=True)
@@ -62,9 +63,17 @@ def build(recipe: Recipe, *, strict: bool = False, progress: Progress | None = N
     perfect = build_perfect(plan)
     note("defects")
     structure, placements = place_defects(plan, perfect)
+    facts = None
+    if recipe.defects.arrangement is not None:
+        from .arrangement import arrange  # compiles its kernel on first use
+
+        note("arrangement")
+        # its own stream from the seed: the defects' draws stay what they were
+        structure, placements, facts = arrange(plan, structure, placements,
+                                               np.random.default_rng([recipe.seed, 1]))
     # one atom order for every format, so defect atom ids hold in each file
     return Built(plan, structure.grouped_by_species().with_charges(recipe.charge_of()),
-                 placements)
+                 placements, facts)
 
 
 def planned_paths(recipe: Recipe, out_dir: str | os.PathLike) -> list[Path]:
@@ -195,6 +204,7 @@ def make_report(built: Built, result: Audit, outputs: dict[str, WrittenFile],
         "close_pairs": v["close_pairs"],
         "space_group": v["space_group"],
         "short_range_order": v["short_range_order"],
+        "arrangement": built.arrangement,
         "defects": [
             {"kind": p.kind, "element": p.element, "on": p.on, "key": p.key,
              "asked": p.asked, "placed": p.count}

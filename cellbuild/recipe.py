@@ -24,7 +24,8 @@ from .lattices import LATTICES
 from .prototypes import PROTOTYPES
 from .recipe_crystal import Crystal
 from .recipe_geometry import GrainBoundary, Surface, supercell_matrix
-from .recipe_defects import (Amount, Antisite, Defects, Interstitial, Schottky, Substitution,
+from .recipe_defects import (Amount, Antisite, Arrangement, Defects, Interstitial, Schottky,
+                             Substitution,
                              Vacancies)
 from .recipe_lattices import interstitial_sites, sites_hint
 from .yamlread import load_yaml, parse_yaml
@@ -310,7 +311,8 @@ CRYSTAL_KEYS = ("element", "lattice", "a", "density", "radius", "species", "c", 
                 "cif", "axes")
 SIZE_KEYS = ("repeat", "atoms", "min_length", "matrix")
 DEFECT_KEYS = ("vacancies", "schottky", "substitutions", "antisites", "interstitials",
-               "min_separation")
+               "min_separation", "arrangement")
+ARRANGEMENT_KEYS = ("target", "shells", "steps", "weights")
 VACANCY_KEYS = ("count", "fraction", "on")
 SUBSTITUTION_KEYS = ("element", "count", "fraction", "on")
 INTERSTITIAL_KEYS = ("element", "site", "count", "fraction")
@@ -440,8 +442,21 @@ def _defects(c: _Checker, value: Any, crystal: Crystal) -> Defects:
     antisites = [c.make(Antisite, key, s["pair"], s["count"])
                  for key, s in _listed(c, data, "antisites", ANTISITE_KEYS, ("pair", "count"),
                                        "for example antisites: {count: 4, pair: [Ga, As]}")]
+    arrangement = None
+    if "arrangement" in data:
+        a = c.mapping(data["arrangement"], "defects.arrangement")
+        c.known_keys(a, ARRANGEMENT_KEYS, "defects.arrangement")
+        if "weights" in a:
+            a = {**a, "weights": tuple(c.mapping(a["weights"], "defects.arrangement.weights")
+                                       .items())}
+        if isinstance(a.get("target"), dict):
+            a = {**a, "target": tuple(a["target"].items())}
+        arrangement = c.make(Arrangement, "defects.arrangement", **a)
+        if not subs:
+            c.fail("defects.arrangement", data["arrangement"], "has no substitutions to arrange",
+                   "give defects.substitutions with the species to arrange")
     return c.make(Defects, "", vacancies, tuple(subs), tuple(inters),
-                  data.get("min_separation"), tuple(antisites), schottky)
+                  data.get("min_separation"), tuple(antisites), schottky, arrangement)
 
 
 def _listed(c: _Checker, data: dict, name: str, allowed: tuple[str, ...],

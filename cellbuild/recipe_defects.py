@@ -123,6 +123,61 @@ class Schottky:
         v.store(self, "count", v.integer(self.count, "count"))
 
 
+def _shell(value, key: str) -> int:
+    """A shell number (1, 2, ...); YAML mapping keys may arrive as text ("1")."""
+    if isinstance(value, str) and value.strip().isdigit():
+        value = int(value)
+    return v.integer(value, key, minimum=1)
+
+
+@dataclass(frozen=True)
+class Arrangement:
+    """A searched arrangement of the substituted sublattice: ``target`` is
+    ``quasirandom`` (every alpha zero) or shell -> alpha for every unlike pair;
+    ``shells`` (1 to 3), Monte Carlo ``steps``, per-shell ``weights`` (default 1)."""
+
+    target: object = "quasirandom"
+    shells: int = 3
+    steps: int = 200_000
+    weights: tuple[tuple[int, float], ...] = ()
+
+    def __post_init__(self) -> None:
+        if isinstance(self.target, str):
+            if self.target != "quasirandom":
+                v.fail("target", self.target, "is not a known target",
+                       "give quasirandom, or a mapping of shell to alpha such as {1: -0.2}")
+        else:
+            given = dict(self.target) if isinstance(self.target, (tuple, list)) else self.target
+            if not isinstance(given, dict) or not given:
+                v.fail("target", self.target, "must be quasirandom or a mapping of shell to alpha")
+            v.store(self, "target", tuple(sorted(
+                (_shell(k, "target"), v.number(x, f"target.{k}", positive=False))
+                for k, x in given.items())))
+        v.store(self, "shells", v.integer(self.shells, "shells", minimum=1))
+        if self.shells > 3:
+            v.fail("shells", self.shells, "must be at most 3")
+        v.store(self, "steps", v.integer(self.steps, "steps", minimum=1))
+        if self.steps > 10**9:
+            v.fail("steps", self.steps, "must be at most 1,000,000,000")
+        w = dict(self.weights) if isinstance(self.weights, (tuple, list)) else self.weights
+        if not isinstance(w, dict):
+            v.fail("weights", self.weights, "must map shells to weights, such as {1: 1.0, 2: 0.5}")
+        v.store(self, "weights", tuple(sorted((_shell(k, "weights"),
+                                               v.number(x, f"weights.{k}", positive=False))
+                                              for k, x in w.items())))
+        for shell, _ in self.weights + (self.target if isinstance(self.target, tuple) else ()):
+            if shell > self.shells:
+                v.fail("shells", self.shells, f"is smaller than shell {shell} named in the target "
+                       "or weights")
+
+    def target_of(self, shell: int) -> float:
+        """The alpha aimed at on ``shell`` (0 for quasirandom or a shell not named)."""
+        return dict(self.target).get(shell, 0.0) if isinstance(self.target, tuple) else 0.0
+
+    def target_text(self):
+        return self.target if isinstance(self.target, str) else {str(k): x for k, x in self.target}
+
+
 @dataclass(frozen=True)
 class Defects:
     """Defect requests; ``min_separation`` in Angstrom between any two defects.
@@ -137,6 +192,7 @@ class Defects:
     min_separation: float | None = None
     antisites: tuple[Antisite, ...] = ()
     schottky: Schottky | None = None
+    arrangement: Arrangement | None = None
     vacancies_listed: bool = field(default=True, init=False, repr=False, compare=False)
 
     def __post_init__(self) -> None:

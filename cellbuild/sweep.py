@@ -25,7 +25,7 @@ from pathlib import Path
 from typing import Any, Iterator, Mapping
 
 from .errors import InputError
-from .recipe import (ANTISITE_KEYS, SCHOTTKY_KEYS, CHECK_KEYS, CRYSTAL_KEYS, DEFECT_KEYS, INTERSTITIAL_KEYS, NAME_PATTERN,
+from .recipe import (ANTISITE_KEYS, ARRANGEMENT_KEYS, SCHOTTKY_KEYS, CHECK_KEYS, CRYSTAL_KEYS, DEFECT_KEYS, INTERSTITIAL_KEYS, NAME_PATTERN,
                      SIZE_KEYS, SUBSTITUTION_KEYS, TOP_KEYS, VACANCY_KEYS, Recipe, load_yaml,
                      parse_recipe)
 
@@ -123,6 +123,7 @@ def _schema() -> dict:
             **leaf(DEFECT_KEYS),
             "vacancies": leaf(VACANCY_KEYS),
             "schottky": leaf(SCHOTTKY_KEYS),
+            "arrangement": leaf(ARRANGEMENT_KEYS),
             "antisites": [leaf(ANTISITE_KEYS)],
             "substitutions": [leaf(SUBSTITUTION_KEYS)],
             "interstitials": [leaf(INTERSTITIAL_KEYS)],
