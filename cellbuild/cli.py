@@ -226,6 +226,10 @@ def _plan_text(p: dict) -> str:
             f"{label} {s['element']} {s['sites']:,}" for label, s in p["sublattices"].items()))
     for d in p["defects"]:
         lines.append(f"  {d['kind']:17s} {d['placed']:,} {d['element']} on {d['on']} ({d['key']})")
+    if p["arrangement"]:
+        a = p["arrangement"]
+        lines.append(f"  arrangement       {a['target']} over {a['shells']} shell(s), "
+                     f"up to {a['steps']:,} swaps")
     lines.append(f"  memory (est.)     {p['estimated_memory_bytes'] / 1e6:,.1f} MB")
     for key, size in p["estimated_file_bytes"].items():
         lines.append(f"  {key:17s} ~{size / 1e6:,.2f} MB")

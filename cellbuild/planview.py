@@ -35,11 +35,21 @@ def describe(plan: Plan) -> dict:
         "sublattices": _sublattices(plan),
         "defects": defects,
         "charges": recipe.charge_of(),
+        "arrangement": _arrangement(recipe),
         "outputs": list(recipe.outputs),
         "estimated_memory_bytes": plan.estimated_memory,
         "estimated_file_bytes": {k: int(v * scale) for k, v in plan.estimated_files.items()},
         "warnings": list(plan.warnings),
     }
+
+
+def _arrangement(recipe) -> dict | None:
+    """The arrangement search asked for (target, shells, steps), or None."""
+    a = recipe.defects.arrangement
+    if a is None:
+        return None
+    return {"target": a.target_text(), "shells": a.shells, "steps": a.steps,
+            "weights": {str(k): w for k, w in a.weights}}
 
 
 def _sublattices(plan: Plan) -> dict:

@@ -6,8 +6,6 @@ the value) and checks that the output folder is untouched.
 from __future__ import annotations
 
 import errno
-import math
-import os
 from pathlib import Path
 
 import pytest
