@@ -35,7 +35,7 @@ def main() -> None:
     for run in range(3):
         spec = start.copy()
         t = time.perf_counter()
-        _, taken = _anneal(spec, *args_common, args.steps, run, 0.05, start.copy())
+        _, taken, _ = _anneal(spec, *args_common, args.steps, run, 0.05, start.copy())
         rates.append(taken / (time.perf_counter() - t))
     print(f"machine: {platform.machine()}, {os.cpu_count()} cores, Python {platform.python_version()}")
     print(f"256-atom fcc, 50 %, 3 shells: {statistics.median(rates):,.0f} trial swaps per second "

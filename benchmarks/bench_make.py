@@ -59,17 +59,11 @@ defects:
 
 #: fcc Cu in the box along [1-10], [11-2], [111] (6 atoms per unit), with the
 #: defects of RECIPE, at about the size of the 63^3 cubic box.
-ORIENTED_RECIPE = """\
-name: {name}
-crystal: {{element: Cu, lattice: fcc, a: 3.615, axes: {{x: [1, -1, 0], y: [1, 1, -2], z: [1, 1, 1]}}}}
-size: {{atoms: {n}}}
-seed: 1
-outputs: [{outputs}]
-defects:
-  vacancies: {{fraction: 0.01}}
-  substitutions:
-    - {{element: Ni, fraction: 0.10}}
-"""
+ORIENTED_RECIPE = RECIPE.replace(
+    "crystal: {{element: Cu, lattice: fcc, a: 3.615}}",
+    "crystal: {{element: Cu, lattice: fcc, a: 3.615, "
+    "axes: {{x: [1, -1, 0], y: [1, 1, -2], z: [1, 1, 1]}}}}").replace(
+    "size: {{repeat: [{n}, {n}, {n}]}}", "size: {{atoms: {n}}}")
 
 ASE_SCRIPT = """
 import sys

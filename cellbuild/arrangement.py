@@ -67,7 +67,7 @@ def _move(counts, neigh, spec, i, a, b, j):
 @njit(cache=True)
 def _anneal(spec, neigh, weights, target, conc, n_species, steps, seed, t_start, best):
     """The annealing loop; ``best`` receives the best arrangement. Returns (best
-    objective, steps taken)."""
+    objective, steps taken, objective of the starting arrangement)."""
     np.random.seed(seed)
     n_shells, n, zmax = neigh.shape
     counts = np.zeros((n_shells, n_species, n_species), dtype=np.int64)
@@ -86,6 +86,7 @@ def _anneal(spec, neigh, weights, target, conc, n_species, steps, seed, t_start,
             occupied[n_occ] = i
             n_occ += 1
     f = _objective_of(counts, weights, target, conc)
+    start_f = f
     best_f = f
     best[:] = spec
     t0 = max(t_start * f, 1e-12)
@@ -113,7 +114,7 @@ def _anneal(spec, neigh, weights, target, conc, n_species, steps, seed, t_start,
             spec[i], spec[j] = a, b
             _move(counts, neigh, spec, i, b, a, j)
             _move(counts, neigh, spec, j, a, b, i)
-    return best_f, taken
+    return best_f, taken, start_f
 
 
 def neighbour_table(crystal, repeat, label: str, n_shells: int):
@@ -171,12 +172,10 @@ def arrange(plan, structure, placements, rng: np.random.Generator):
     k = len(distances)
     weights = np.array([dict(spec_recipe.weights).get(i + 1, 1.0) for i in range(k)])
     target = np.array([spec_recipe.target_of(i + 1) for i in range(k)])
-    start = spec.copy()
     best = spec.copy()
     seed = int(rng.integers(0, 2**31 - 1))
-    best_f, taken = _anneal(spec, table, weights, target, conc, len(present), spec_recipe.steps,
-                           seed, 0.05, best)
-    start_f = _objective(start, table, weights, target, conc, len(present))
+    best_f, taken, start_f = _anneal(spec, table, weights, target, conc, len(present),
+                                     spec_recipe.steps, seed, 0.05, best)
     species = structure.species.copy()
     species[where[hit]] = present[best[hit]].astype(species.dtype)
     arranged = type(structure)(structure.cell, structure.positions, species, structure.symbols,
@@ -186,27 +185,6 @@ def arrange(plan, structure, placements, rng: np.random.Generator):
              "weights": weights.tolist(), "steps": int(taken), "objective": float(best_f),
              "random_objective": float(start_f)}
     return arranged, placements, facts
-
-
-def _objective(spec, table, weights, target, conc, n_species) -> float:
-    """The objective of ``spec`` counted from scratch with numpy (the random start)."""
-    f = 0.0
-    ok = spec >= 0
-    for k in range(table.shape[0]):
-        nb = table[k]
-        valid = ok[:, None] & (nb >= 0)
-        valid &= ok[np.maximum(nb, 0)]
-        a = np.broadcast_to(spec[:, None], nb.shape)[valid]
-        b = spec[np.maximum(nb, 0)][valid]
-        counts = np.bincount(a * n_species + b, minlength=n_species * n_species).reshape(
-            n_species, n_species)
-        around = counts.sum(axis=1)
-        for x in range(n_species):
-            for y in range(x + 1, n_species):
-                if around[x]:
-                    alpha = 1.0 - counts[x, y] / around[x] / conc[y]
-                    f += weights[k] * (alpha - target[k]) ** 2
-    return f
 
 
 def _moved(placements, structure, crystal, label):

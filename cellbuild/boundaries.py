@@ -17,15 +17,14 @@ rotation matrix). Lengths in Angstrom, angles in degrees.
 """
 from __future__ import annotations
 
-import dataclasses
 import itertools
 import math
 
 import numpy as np
 
-from .crystal import Crystal, neighbour_offsets
+from .crystal import Crystal
 from .errors import InputError
-from .orientation import MAX_UNIT_SITES, oriented
+from .orientation import MAX_UNIT_SITES, oriented, unit_crystal
 
 
 #: Default thickness of each grain, Angstrom (the repeat units along z rounded up).
@@ -119,18 +118,11 @@ def tilt_boundary(crystal: Crystal, axis, plane, grains: int | None, vacuum: flo
     positions, grain, local = positions[order], grain[order], local[order]
     basis = positions / np.diag(cell)
     basis[basis >= 1.0 - 1e-12] -= 1.0
-    sublattice = tuple(np.array(unit.sublattice)[local].tolist())
-    elements = tuple(np.array(unit.elements)[local].tolist())
-    site_cutoff = tuple(float(c) for c in np.array(unit.site_cutoff)[local])
     facts = {"axis": list(axis), "plane": list(plane), "grains": grains, "vacuum": vacuum,
              "misorientation": misorientation(plane), "sigma": sigma(plane),
              "boundaries": 1 if vacuum > 0 else 2, "removed_per_period": int(len(removed)),
              "min_distance": threshold, "area": float(cell[0, 0] * cell[1, 1])}
-    return dataclasses.replace(
-        unit, cell=cell, basis=basis, sublattice=sublattice, elements=elements,
-        site_frac=basis, site_kind=("lattice",) * len(basis), site_cutoff=site_cutoff,
-        offsets=neighbour_offsets(cell, basis, np.array(site_cutoff)), boundary=facts,
-        unit_rows=None)
+    return unit_crystal(unit, cell, basis, local, boundary=facts, unit_rows=None)
 
 
 def _close_to_grain_one(cell: np.ndarray, positions: np.ndarray, grain: np.ndarray,

@@ -138,21 +138,30 @@ def _recut(crystal: Crystal, rows: np.ndarray, cell: np.ndarray, key: str) -> Cr
     rounded = np.round(frac, 9)
     order = np.lexsort((rounded[:, 0], rounded[:, 1], rounded[:, 2], local))
     frac, local = frac[order], local[order]
-    lattice = local < crystal.n_basis
-    parent_kind = np.array(crystal.site_kind)
-    interstitials = {kind: tuple(map(tuple, frac[parent_kind[local] == kind]))
-                     for kind in crystal.interstitial_kinds}
+    return unit_crystal(crystal, cell, frac, local, unit_rows=tuple(map(tuple, rows.tolist())))
+
+
+def unit_crystal(parent: Crystal, cell: np.ndarray, frac: np.ndarray, local: np.ndarray,
+                 **fields) -> Crystal:
+    """A new repeat unit of ``parent``'s sites: site k at ``frac[k]`` (fractions of
+    ``cell``, Angstrom rows) is grid site ``local[k]`` of ``parent`` and keeps its
+    kind, sublattice, element and audit cutoff. Lattice sites come first, then each
+    interstitial kind, each in the given order; ``fields`` are set on the result."""
+    kinds = np.array(parent.site_kind)[local]
+    lattice = local < parent.n_basis
     basis = frac[lattice]
-    labels = tuple(np.array(crystal.sublattice)[local[lattice]].tolist())
-    elements = tuple(np.array(crystal.elements)[local[lattice]].tolist())
-    site_cutoff = tuple(float(c) for c in np.array(crystal.site_cutoff)[local[lattice]])
-    site_frac = np.concatenate([basis] + [np.array(v).reshape(-1, 3)
-                                          for v in interstitials.values()])
-    kinds = ("lattice",) * len(basis) + tuple(k for k, v in interstitials.items() for _ in v)
-    cutoffs = np.full(len(site_frac), crystal.audit_cutoff)
+    parts = [frac[kinds == kind] for kind in parent.interstitial_kinds]
+    site_frac = np.concatenate([basis] + parts)
+    site_kind = ("lattice",) * len(basis) + tuple(
+        kind for kind, part in zip(parent.interstitial_kinds, parts) for _ in part)
+    site_cutoff = tuple(float(c) for c in np.array(parent.site_cutoff)[local[lattice]])
+    cutoffs = np.full(len(site_frac), parent.audit_cutoff)
     cutoffs[:len(basis)] = site_cutoff
+    cell = np.ascontiguousarray(cell, dtype=np.float64)
     return dataclasses.replace(
-        crystal, cell=np.ascontiguousarray(cell, dtype=np.float64), basis=basis,
-        sublattice=labels, elements=elements, site_frac=site_frac, site_kind=kinds,
-        site_cutoff=site_cutoff, offsets=neighbour_offsets(cell, site_frac, cutoffs),
-        parent=crystal.parent or crystal, unit_rows=tuple(map(tuple, rows.tolist())))
+        parent, cell=cell, basis=basis,
+        sublattice=tuple(np.array(parent.sublattice)[local[lattice]].tolist()),
+        elements=tuple(np.array(parent.elements)[local[lattice]].tolist()),
+        site_frac=site_frac, site_kind=site_kind, site_cutoff=site_cutoff,
+        offsets=neighbour_offsets(cell, site_frac, cutoffs), parent=parent.parent or parent,
+        **fields)

@@ -4,6 +4,7 @@ here, once, at the boundary)."""
 from __future__ import annotations
 
 from dataclasses import dataclass, field
+from functools import lru_cache
 from pathlib import Path
 from typing import Any
 
@@ -86,8 +87,6 @@ class Crystal:
         """A crystal read from the CIF at ``cif`` (read here, once): sublattices are
         its site labels, each holding its majority element; ``a`` or ``density``
         scale its cell."""
-        from .cif_crystal import crystal_from_cif
-
         if self.cif is None:
             v.fail("crystal.cif", None, "is required with lattice: cif",
                    "give the path of a CIF file")
@@ -104,7 +103,7 @@ class Crystal:
             _set(self, which, v.number(getattr(self, which), f"crystal.{which}"))
         if self.source_crystal is None:
             try:
-                _set(self, "source_crystal", crystal_from_cif(Path(self.cif_folder or ".") / path))
+                _set(self, "source_crystal", _read_cif(Path(self.cif_folder or ".") / path))
             except InputError as exc:
                 where = f" ({exc.file}{f', line {exc.line}' if exc.line else ''})"
                 raise InputError(exc.message + where, key="crystal.cif", value=path,
@@ -167,3 +166,21 @@ def _axes(value) -> tuple[tuple[int, int, int], ...]:
     if not isinstance(value, dict) or set(value) != {"x", "y", "z"}:
         v.fail("crystal.axes", value, "must map x, y and z to lattice directions", hint)
     return tuple(v.index_triple(value[n], f"crystal.axes.{n}") for n in "xyz")
+
+
+def _read_cif(path: Path):
+    """The CIF's crystal, read once per file version: the sweep points and batch
+    jobs of one recipe share it (keyed by path, size and modification time)."""
+    try:
+        stat = path.stat()
+        version = (stat.st_size, stat.st_mtime_ns)
+    except OSError:
+        version = None  # crystal_from_cif names the problem
+    return _read_cif_version(str(path), version)
+
+
+@lru_cache(maxsize=32)
+def _read_cif_version(path: str, version):
+    from .cif_crystal import crystal_from_cif
+
+    return crystal_from_cif(path)

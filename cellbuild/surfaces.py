@@ -20,9 +20,9 @@ import math
 
 import numpy as np
 
-from .crystal import Crystal, neighbour_offsets
+from .crystal import Crystal
 from .errors import InputError
-from .orientation import MAX_UNIT_SITES, oriented, shortest_translation
+from .orientation import MAX_UNIT_SITES, oriented, shortest_translation, unit_crystal
 
 #: Atoms closer than this in z (Angstrom) are one plane.
 PLANE_TOLERANCE = 1e-6
@@ -114,25 +114,10 @@ def slab(crystal: Crystal, miller: tuple[int, int, int], layers: int, vacuum: fl
                          hint="fewer layers")
     cell = np.diag([unit.cell[0, 0], unit.cell[1, 1], height])
     new_frac = np.stack([frac[:, 0], frac[:, 1], z / height], axis=1)
-    lattice = local < unit.n_basis
-    kinds = np.array(unit.site_kind)[local]
-    basis = new_frac[lattice]
-    site_frac = np.concatenate([basis] + [new_frac[~lattice & (kinds == k)]
-                                          for k in unit.interstitial_kinds])
-    site_kind = ("lattice",) * len(basis) + tuple(
-        k for k in unit.interstitial_kinds for _ in range(int(np.sum(~lattice & (kinds == k)))))
-    site_cutoff = tuple(float(c) for c in np.array(unit.site_cutoff)[local[lattice]])
-    cutoffs = np.full(len(site_frac), unit.audit_cutoff)
-    cutoffs[:len(basis)] = site_cutoff
-    sublattice = tuple(labels[local[lattice]].tolist())
-    elements = tuple(np.array(unit.elements)[local[lattice]].tolist())
-    facts = _facts(miller, layers, vacuum, termination, cell, basis[:, 2] * height, sublattice,
-                   elements, charges, axes)
-    return dataclasses.replace(
-        unit, cell=cell, basis=basis, sublattice=sublattice, elements=elements,
-        site_frac=site_frac, site_kind=site_kind, site_cutoff=site_cutoff,
-        offsets=neighbour_offsets(cell, site_frac, cutoffs), surface=facts,
-        unit_rows=None)
+    made = unit_crystal(unit, cell, new_frac, local, unit_rows=None)
+    facts = _facts(miller, layers, vacuum, termination, cell, made.basis[:, 2] * height,
+                   made.sublattice, made.elements, charges, axes)
+    return dataclasses.replace(made, surface=facts)
 
 
 def _facts(miller, layers, vacuum, termination, cell, z, sublattice, elements, charges,
