@@ -212,3 +212,17 @@ def test_perovskite_titanium_counts_within_its_own_cutoff():
     assert by_species == {"Sr": {"12": n_cells}, "Ti": {"6": n_cells}, "O": {"2": 3 * n_cells}}
     cutoffs = result.values["coordination"]["cutoff_by_sublattice"]
     assert cutoffs["B"] < 3.905 * np.sqrt(2) / 2 < cutoffs["A"]
+
+
+def test_a_changed_charge_fails_only_the_net_charge_check():
+    """MgO with formal charges (common practice: Mg +2, O -2) is neutral; one oxygen
+    whose charge is altered in the structure makes the counted net charge +2."""
+    data = {"name": "mgo", "crystal": {"lattice": "rocksalt", "species": {"A": "Mg", "B": "O"},
+                                       "a": 4.212},
+            "size": {"repeat": [2, 2, 2]}, "charges": {"Mg": 2, "O": -2}}
+    b = build(parse_recipe(data))
+    assert _failed(b, b.structure)[0] == set()
+    charges = b.structure.charges.copy()
+    charges[np.flatnonzero(b.structure.species == b.structure.symbols.index("O"))[0]] = 0.0
+    failed, result = _failed(b, dataclasses.replace(b.structure, charges=charges))
+    assert failed == {"net_charge"} and result.values["net_charge"] == pytest.approx(2.0)
