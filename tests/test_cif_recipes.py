@@ -150,6 +150,7 @@ def test_cif_labels_take_defects_and_charges_read_by_lammps(cli, recipe_file, tm
     assert result.exit_code == 0 and report["passed"], result.output
     assert report["composition"] == {"Ti": 24, "O": 46}  # rutile: 2 TiO2 per cell, 12 cells
     atoms, total = charge_sum(out / "x.lmp", tmp_path)
+    # formal charges (common practice): 24 Ti4+ and 46 O2- give 96 - 92 = +4
     assert atoms == 70 and total == pytest.approx(4.0, abs=1e-8)
 
 

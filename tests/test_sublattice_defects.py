@@ -104,6 +104,7 @@ def test_lone_oxygen_vacancy_fails_net_charge_unless_declared(cli, recipe_file, 
                               defects={"vacancies": {"count": 1, "on": "O"}})
     assert result.exit_code == 1
     check = next(c for c in report["checks"] if c["name"] == "net_charge")
+    # formal charges (common practice): one missing O2- leaves +2
     assert not check["passed"] and report["net_charge"] == pytest.approx(2.0)
     result, report, _ = _make(cli, recipe_file, tmp_path / "b", MGO, charges=charges,
                               checks={"net_charge": 2},
@@ -120,7 +121,7 @@ def test_lammps_reads_the_charge_style_and_sums_to_the_net_charge(cli, recipe_fi
         cli, recipe_file, tmp_path, SRTIO3, charges={"Sr": 2, "Ti": 4, "O": -2},
         checks={"net_charge": 4}, defects={"vacancies": {"count": 2, "on": "O"}})
     assert result.exit_code == 0 and report["passed"], result.output
-    assert report["net_charge"] == pytest.approx(4.0)
+    assert report["net_charge"] == pytest.approx(4.0)  # two missing O2-: +4 (common practice)
     text = (out / "x.lmp").read_text()
     assert "atom_style charge" in text.splitlines()[0] and "Atoms  # charge" in text
     atoms, total = charge_sum(out / "x.lmp", tmp_path)
