@@ -64,11 +64,15 @@ def _move(counts, neigh, spec, i, a, b, j):
             counts[k, c, b] += 1
 
 
+#: Steps per call of the compiled kernel. The random numbers of each call are
+#: drawn from the recipe's generator in blocks of this size, so the stream, and
+#: with it the result, is the same whether or not progress is shown.
+CHUNK = 1 << 16
+
+
 @njit(cache=True)
-def _anneal(spec, neigh, weights, target, conc, n_species, steps, seed, t_start, best):
-    """The annealing loop; ``best`` receives the best arrangement. Returns (best
-    objective, steps taken, objective of the starting arrangement)."""
-    np.random.seed(seed)
+def _pair_counts(spec, neigh, n_species):
+    """Pair counts (shells, species, species) of the arrangement ``spec`` (-1: not counted)."""
     n_shells, n, zmax = neigh.shape
     counts = np.zeros((n_shells, n_species, n_species), dtype=np.int64)
     for k in range(n_shells):
@@ -79,24 +83,48 @@ def _anneal(spec, neigh, weights, target, conc, n_species, steps, seed, t_start,
                 m = neigh[k, i, q]
                 if m >= 0 and spec[m] >= 0:
                     counts[k, spec[i], spec[m]] += 1
-    occupied = np.empty(n, dtype=np.int64)
-    n_occ = 0
-    for i in range(n):
-        if spec[i] >= 0:
-            occupied[n_occ] = i
-            n_occ += 1
-    f = _objective_of(counts, weights, target, conc)
-    start_f = f
-    best_f = f
-    best[:] = spec
-    t0 = max(t_start * f, 1e-12)
+    return counts
+
+
+@njit(cache=True)
+def _keep(top_f, top, spec, f):
+    """Offer the arrangement ``spec`` (objective ``f``) to the kept best ones:
+    it replaces the worst kept unless it is no better or is kept already (an
+    equal arrangement has an equal objective, so only those are compared)."""
+    worst = 0
+    for e in range(top_f.size):
+        if top_f[e] > top_f[worst]:
+            worst = e
+    if f >= top_f[worst]:
+        return
+    for e in range(top_f.size):
+        if top_f[e] == f:
+            same = True
+            for i in range(spec.size):
+                if top[e, i] != spec[i]:
+                    same = False
+                    break
+            if same:
+                return
+    top_f[worst] = f
+    top[worst, :] = spec
+
+
+@njit(cache=True)
+def _anneal(spec, counts, neigh, weights, target, conc, occupied, first, second, uniform,
+            step0, steps, t0, f, top_f, top):
+    """``len(first)`` annealing steps from step ``step0`` of ``steps``: swap the
+    species on sites ``occupied[first[s]]`` and ``occupied[second[s]]``, accept
+    by the Metropolis rule against ``uniform[s]`` at a temperature falling
+    linearly from ``t0`` to zero. ``spec`` and ``counts`` carry the current
+    arrangement between calls; ``top_f``/``top`` receive the best distinct ones.
+    Returns (current objective, steps taken); stops early once every kept
+    arrangement meets the target exactly (objective below 1e-12)."""
     taken = 0
-    for step in range(steps):
-        if best_f < 1e-12:
-            break
+    for s in range(first.size):
         taken += 1
-        i = occupied[np.random.randint(n_occ)]
-        j = occupied[np.random.randint(n_occ)]
+        i = occupied[first[s]]
+        j = occupied[second[s]]
         a, b = spec[i], spec[j]
         if a == b:
             continue
@@ -104,17 +132,53 @@ def _anneal(spec, neigh, weights, target, conc, n_species, steps, seed, t_start,
         _move(counts, neigh, spec, j, b, a, i)
         spec[i], spec[j] = b, a
         g = _objective_of(counts, weights, target, conc)
-        temperature = t0 * (1.0 - step / steps)
-        if g <= f or np.random.random() < math.exp(-(g - f) / max(temperature, 1e-300)):
+        temperature = t0 * (1.0 - (step0 + s) / steps)
+        if g <= f or uniform[s] < math.exp(-(g - f) / max(temperature, 1e-300)):
             f = g
-            if f < best_f:
-                best_f = f
-                best[:] = spec
+            if f < 1e-12:
+                _keep(top_f, top, spec, f)
+                if top_f.max() < 1e-12:
+                    break
+            else:
+                _keep(top_f, top, spec, f)
         else:
             spec[i], spec[j] = a, b
             _move(counts, neigh, spec, i, b, a, j)
             _move(counts, neigh, spec, j, a, b, i)
-    return best_f, taken, start_f
+    return f, taken
+
+
+def search(spec, table, weights, target, conc, steps, rng, keep=1, progress=None):
+    """Anneal the arrangement ``spec`` (species code per sublattice site, -1 for
+    sites that take no part) towards the target; returns (the ``keep`` best
+    distinct arrangements found, best first, as rows; their objectives; steps
+    taken; objective of the starting arrangement). ``progress(fraction, best)``
+    is told after each block of :data:`CHUNK` steps."""
+    spec = spec.copy()
+    n_species = len(conc)
+    counts = _pair_counts(spec, table, n_species)
+    f = _objective_of(counts, weights, target, conc)
+    start_f = f
+    top_f = np.full(keep, np.inf)
+    top = np.full((keep, spec.size), -1, dtype=np.int64)
+    _keep(top_f, top, spec, f)
+    occupied = np.flatnonzero(spec >= 0)
+    t0 = max(0.05 * f, 1e-12)
+    taken = 0
+    for step0 in range(0, steps, CHUNK):
+        if top_f.max() < 1e-12:
+            break
+        m = min(CHUNK, steps - step0)
+        first = rng.integers(0, occupied.size, size=m)
+        second = rng.integers(0, occupied.size, size=m)
+        uniform = rng.random(m)
+        f, done = _anneal(spec, counts, table, weights, target, conc, occupied, first, second,
+                          uniform, step0, steps, t0, f, top_f, top)
+        taken += done
+        if progress is not None:
+            progress((step0 + m) / steps, float(top_f.min()))
+    order = np.argsort(top_f, kind="stable")
+    return top[order], top_f[order], taken, start_f
 
 
 def neighbour_table(crystal, repeat, label: str, n_shells: int):
@@ -143,13 +207,79 @@ def neighbour_table(crystal, repeat, label: str, n_shells: int):
     return ids, table, distances
 
 
-def arrange(plan, structure, placements, rng: np.random.Generator):
-    """The structure with the recipe's arrangement applied to its substituted
-    sublattice, the placements updated to where each species ends up, and the
-    search's facts for the report (None without an arrangement)."""
-    spec_recipe = plan.recipe.defects.arrangement
-    if spec_recipe is None:
-        return structure, placements, None
+def arrange(plan, perfect, placements, rng: np.random.Generator, progress=None):
+    """The placements re-pointed at the arrangement the search reaches on the
+    substituted sublattice (vacancies there too when the recipe lets them take
+    part), and the search's facts for the report; unchanged placements and None
+    without an arrangement. ``perfect`` is the defect-free structure (for the
+    species of the sites no placement names). ``progress(text)`` hears the
+    search's progress. With ``structures: N``, the recipe's ``variant`` (1 to N)
+    picks which of the N best distinct arrangements is returned."""
+    request = plan.recipe.defects.arrangement
+    if request is None:
+        return placements, None
+    crystal = plan.crystal
+    label = _arranged_sublattice(plan, placements)
+    ids, table, distances = neighbour_table(crystal, plan.repeat, label, request.shells)
+    names, spec = _species_on(plan, perfect, placements, ids, label, request.vacancies)
+    conc = np.bincount(spec[spec >= 0], minlength=len(names)) / np.count_nonzero(spec >= 0)
+    k = len(distances)
+    weights = np.array([dict(request.weights).get(i + 1, 1.0) for i in range(k)])
+    target = np.array([request.target_of(i + 1) for i in range(k)])
+    rank = plan.recipe.variant or 1 if request.structures > 1 else 1
+    tell = None
+    if progress is not None:
+        marks = iter(range(10, 101, 10))
+        due = [next(marks)]
+
+        def tell(fraction, best):
+            while due[0] is not None and fraction * 100 >= due[0]:
+                progress(f"arrangement {due[0]} % (best objective {best:.3g})")
+                due[0] = next(marks, None)
+
+    rows, objectives, taken, start_f = search(spec, table, weights, target, conc, request.steps,
+                                              rng, keep=request.structures, progress=tell)
+    found = int(np.isfinite(objectives).sum())
+    if found < rank:
+        raise InputError(f"asks for more arrangements than the {found} distinct ones the search "
+                         f"met", key="defects.arrangement.structures", value=request.structures,
+                         hint="ask for fewer, or give more steps", file=plan.recipe.source)
+    best = rows[rank - 1]
+    facts = {"sublattice": label, "target": request.target_text(), "shells": distances,
+             "weights": weights.tolist(), "steps": int(taken),
+             "objective": float(objectives[rank - 1]), "random_objective": float(start_f),
+             "best_random_objective": best_random(spec, table, weights, target, conc,
+                                                  np.random.default_rng([plan.recipe.seed, 2])),
+             "random_draws": RANDOM_DRAWS, "species": names,
+             "alpha": _alphas(best, table, names, conc)}
+    if request.structures > 1:
+        facts.update(rank=rank, of=request.structures)
+    return _moved(placements, crystal, label, ids, names, best), facts
+
+
+#: Random arrangements drawn to compare the search's result with.
+RANDOM_DRAWS = 100
+
+
+def best_random(spec, table, weights, target, conc, rng, draws: int = RANDOM_DRAWS) -> float:
+    """The lowest objective of ``draws`` random arrangements of the same species
+    on the same sites (the yardstick for the search: what drawing alone reaches)."""
+    taking_part = np.flatnonzero(spec >= 0)
+    trial = spec.copy()
+    best = np.inf
+    for _ in range(draws):  # a handful of draws, each one compiled count
+        trial[taking_part] = rng.permutation(spec[taking_part])
+        best = min(best, _objective_of(_pair_counts(trial, table, len(conc)), weights, target,
+                                       conc))
+    return float(best)
+
+
+#: The name of a vacant site taking part in the search, in the facts' pairs.
+VACANCY = "Va"
+
+
+def _arranged_sublattice(plan, placements) -> str:
+    """The one sublattice the substitutions are on (refused otherwise)."""
     crystal = plan.crystal
     subs = [p for p in placements if p.kind == "substitution"]
     labels = {crystal.sublattice[int(s)] for p in subs for s in np.unique(p.site_ids % crystal.n_grid)}
@@ -157,51 +287,56 @@ def arrange(plan, structure, placements, rng: np.random.Generator):
         raise InputError("needs substitutions on one sublattice to arrange",
                          key="defects.arrangement", value=sorted(labels) or None,
                          hint="give every substitution the same `on:`", file=plan.recipe.source)
-    label = labels.pop()
-    ids, table, distances = neighbour_table(crystal, plan.repeat, label, spec_recipe.shells)
-    where = np.full(len(ids), -1, dtype=np.int64)  # atom index on each sublattice site
-    order = np.argsort(structure.site)
-    found = np.searchsorted(structure.site, ids, sorter=order)
-    hit = (found < structure.n_atoms) & (structure.site[order[np.minimum(found, structure.n_atoms - 1)]] == ids)
-    where[hit] = order[found[hit]]
-    codes = structure.species[where[hit]]
-    present = np.unique(codes)
-    spec = np.full(len(ids), -1, dtype=np.int64)
-    spec[hit] = np.searchsorted(present, codes)
-    conc = np.bincount(spec[hit], minlength=len(present)) / hit.sum()
-    k = len(distances)
-    weights = np.array([dict(spec_recipe.weights).get(i + 1, 1.0) for i in range(k)])
-    target = np.array([spec_recipe.target_of(i + 1) for i in range(k)])
-    best = spec.copy()
-    seed = int(rng.integers(0, 2**31 - 1))
-    best_f, taken, start_f = _anneal(spec, table, weights, target, conc, len(present),
-                                     spec_recipe.steps, seed, 0.05, best)
-    species = structure.species.copy()
-    species[where[hit]] = present[best[hit]].astype(species.dtype)
-    arranged = type(structure)(structure.cell, structure.positions, species, structure.symbols,
-                               structure.site, structure.charges)
-    placements = _moved(placements, arranged, crystal, label)
-    facts = {"sublattice": label, "target": spec_recipe.target_text(), "shells": distances,
-             "weights": weights.tolist(), "steps": int(taken), "objective": float(best_f),
-             "random_objective": float(start_f)}
-    return arranged, placements, facts
+    return labels.pop()
 
 
-def _moved(placements, structure, crystal, label):
-    """Substitution placements on ``label`` re-pointed at the sites that hold their
-    element after the search (requests of one element share them in recipe order)."""
+def _species_on(plan, perfect, placements, ids, label, vacancies: bool):
+    """(names of the species taking part, in type order, species code per
+    sublattice site): the perfect crystal's element, then each placement's
+    element on its sites; vacant sites are -1 (no part), or the last species,
+    :data:`VACANCY`, when ``vacancies``."""
+    n_grid, n_basis = plan.crystal.n_grid, plan.crystal.n_basis
+    cell, s = np.divmod(ids, n_grid)
+    held = perfect.species[cell * n_basis + s].astype(np.int64)  # atoms are in site order
+    vacant = len(perfect.symbols)
+    for p in placements:
+        if p.kind == "interstitial":
+            continue
+        at = np.searchsorted(ids, p.site_ids)
+        mine = (at < ids.size) & (ids[np.minimum(at, ids.size - 1)] == p.site_ids)
+        held[at[mine]] = vacant if p.kind == "vacancy" else perfect.symbols.index(p.element)
+    codes = np.unique(held)
+    if not vacancies:
+        codes = codes[codes != vacant]
+    names = [perfect.symbols[c] if c < vacant else VACANCY for c in codes]
+    at = np.searchsorted(codes, held)
+    taking_part = (at < codes.size) & (codes[np.minimum(at, codes.size - 1)] == held)
+    return names, np.where(taking_part, at, -1).astype(np.int64)
+
+
+def _alphas(spec, table, names, conc) -> dict:
+    """Warren-Cowley alphas of the arrangement per unlike pair: {"A-B": [per shell]}."""
+    from .short_range_order import alpha_table
+
+    counts = _pair_counts(spec, table, len(names))
+    return alpha_table(counts, names, conc)
+
+
+def _moved(placements, crystal, label, ids, names, spec):
+    """Placements on ``label`` re-pointed at the sites that hold their species in
+    the arrangement ``spec`` (requests of one species share them in recipe order)."""
     from dataclasses import replace
 
-    local = structure.site % crystal.n_grid
-    on = np.isin(local, [i for i, lb in enumerate(crystal.sublattice) if lb == label])
     out, used = [], {}
     for p in placements:
-        if p.kind != "substitution":
+        on_label = p.kind in ("substitution", "vacancy") and p.site_ids.size and \
+            crystal.sublattice[int(p.site_ids[0] % crystal.n_grid)] == label
+        name = VACANCY if p.kind == "vacancy" else p.element
+        if not on_label or name not in names:
             out.append(p)
             continue
-        code = structure.symbols.index(p.element)
-        sites = np.sort(structure.site[on & (structure.species == code)])
-        start = used.get(p.element, 0)
+        sites = ids[spec == names.index(name)]  # ids ascend, so these do too
+        start = used.get(name, 0)
         out.append(replace(p, site_ids=sites[start:start + p.count]))
-        used[p.element] = start + p.count
+        used[name] = start + p.count
     return out

@@ -48,7 +48,8 @@ class Placement:
 
 
 def place_defects(plan: Plan, perfect: Structure) -> tuple[Structure, list[Placement]]:
-    """Apply the recipe's defects to the perfect supercell, seeded by ``recipe.seed``.
+    """Apply the recipe's defects to the perfect supercell, seeded by ``recipe.seed``
+    (or, for ``placement: distinct``, the sites of the recipe's configuration).
 
     Returns the defective structure (vacancies removed, substituted species
     changed, interstitials appended in site order) and the placements.
@@ -57,12 +58,17 @@ def place_defects(plan: Plan, perfect: Structure) -> tuple[Structure, list[Place
     counts = planned_counts(plan)
     if not counts:
         return perfect, []
-    rng = np.random.default_rng(recipe.seed)
-    picker = _Picker(plan, rng)
+    if recipe.defects.placement == "distinct":
+        from .variants import configuration_sites
+
+        chosen = configuration_sites(plan)
+    else:
+        picker = _Picker(plan, np.random.default_rng(recipe.seed))
+        chosen = [picker.pick(req, n) for req, n in counts]
     placements = [
-        Placement(req.kind, req.element, req.on, req.key, asked(req.amount),
-                  np.sort(picker.pick(req, n)), req.host)
-        for req, n in counts
+        Placement(req.kind, req.element, req.on, req.key, asked(req.amount), np.sort(sites),
+                  req.host)
+        for (req, _), sites in zip(counts, chosen)
     ]
     return apply(plan, perfect, placements), placements
 

@@ -19,7 +19,7 @@ import numpy as np
 from . import __version__
 from .audit import Audit, audit
 from .build import Plan, build_perfect, check_disk_space, resolve, size_key, size_value
-from .defects import Placement, place_defects
+from .defects import Placement, apply, place_defects
 from .errors import InputError
 from .fileio import StagedFiles
 from .formats import WrittenFile, output_path, write_structure
@@ -38,6 +38,7 @@ class Built:
     structure: Structure
     placements: list[Placement]
     arrangement: dict | None = None  # the arrangement search's facts, if the recipe asks one
+    configuration: dict | None = None  # facts of a distinct configuration (placement: distinct)
 
 
 @dataclass(frozen=True)
@@ -69,11 +70,17 @@ def build(recipe: Recipe, *, strict: bool = False, progress: Progress | None = N
 
         note("arrangement")
         # its own stream from the seed: the defects' draws stay what they were
-        structure, placements, facts = arrange(plan, structure, placements,
-                                               np.random.default_rng([recipe.seed, 1]))
+        placements, facts = arrange(plan, perfect, placements,
+                                    np.random.default_rng([recipe.seed, 1]), progress=progress)
+        structure = apply(plan, perfect, placements)
+    configuration = None
+    if recipe.defects.placement == "distinct":
+        from .variants import configuration_facts
+
+        configuration = configuration_facts(plan)
     # one atom order for every format, so defect atom ids hold in each file
     return Built(plan, structure.grouped_by_species().with_charges(recipe.charge_of()),
-                 placements, facts)
+                 placements, facts, configuration)
 
 
 def planned_paths(recipe: Recipe, out_dir: str | os.PathLike) -> list[Path]:
@@ -205,6 +212,7 @@ def make_report(built: Built, result: Audit, outputs: dict[str, WrittenFile],
         "space_group": v["space_group"],
         "short_range_order": v["short_range_order"],
         "arrangement": built.arrangement,
+        "configuration": built.configuration,
         "defects": [
             {"kind": p.kind, "element": p.element, "on": p.on, "key": p.key,
              "asked": p.asked, "placed": p.count}

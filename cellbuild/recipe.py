@@ -123,8 +123,14 @@ class Recipe:
     charges: tuple[tuple[str, float], ...] | None = None
     surface: Surface | None = None
     grain_boundary: GrainBoundary | None = None
+    #: which of the structures the recipe stands for (1-based): the rank of an
+    #: arrangement (``arrangement.structures``) or a distinct configuration
+    #: (``placement: distinct``); set by :mod:`cellbuild.variants`, not a YAML key
+    variant: int | None = None
 
     def __post_init__(self) -> None:
+        if self.variant is not None:
+            _set(self, "variant", v.integer(self.variant, "variant", minimum=1))
         name = v.text(self.name, "name")
         if not NAME_PATTERN.match(name) or name.startswith("."):
             v.fail("name", self.name, "is not a safe file stem",
@@ -311,8 +317,8 @@ CRYSTAL_KEYS = ("element", "lattice", "a", "density", "radius", "species", "c", 
                 "cif", "axes")
 SIZE_KEYS = ("repeat", "atoms", "min_length", "matrix")
 DEFECT_KEYS = ("vacancies", "schottky", "substitutions", "antisites", "interstitials",
-               "min_separation", "arrangement")
-ARRANGEMENT_KEYS = ("target", "shells", "steps", "weights")
+               "min_separation", "arrangement", "placement")
+ARRANGEMENT_KEYS = ("target", "shells", "steps", "weights", "structures", "vacancies")
 VACANCY_KEYS = ("count", "fraction", "on")
 SUBSTITUTION_KEYS = ("element", "count", "fraction", "on")
 INTERSTITIAL_KEYS = ("element", "site", "count", "fraction")
@@ -455,8 +461,10 @@ def _defects(c: _Checker, value: Any, crystal: Crystal) -> Defects:
         if not subs:
             c.fail("defects.arrangement", data["arrangement"], "has no substitutions to arrange",
                    "give defects.substitutions with the species to arrange")
-    return c.make(Defects, "", vacancies, tuple(subs), tuple(inters),
-                  data.get("min_separation"), tuple(antisites), schottky, arrangement)
+    defects = c.make(Defects, "", vacancies, tuple(subs), tuple(inters),
+                     data.get("min_separation"), tuple(antisites), schottky, arrangement,
+                     data.get("placement", "random"))
+    return defects
 
 
 def _listed(c: _Checker, data: dict, name: str, allowed: tuple[str, ...],

@@ -16,6 +16,13 @@ from . import recipe_values as v
 #: Longest target name accepted (CIF site labels are short).
 MAX_TARGET = 64
 
+#: Most arrangements one search may write (``arrangement.structures``).
+MAX_STRUCTURES = 100
+
+#: How the defects' sites are chosen: a seeded random draw, or every
+#: symmetry-distinct placement, one structure each.
+PLACEMENTS = ("random", "distinct")
+
 
 def target(value, key: str) -> str:
     """A target name: non-empty text without spaces, at most ``MAX_TARGET`` characters."""
@@ -134,14 +141,24 @@ def _shell(value, key: str) -> int:
 class Arrangement:
     """A searched arrangement of the substituted sublattice: ``target`` is
     ``quasirandom`` (every alpha zero) or shell -> alpha for every unlike pair;
-    ``shells`` (1 to 3), Monte Carlo ``steps``, per-shell ``weights`` (default 1)."""
+    ``shells`` (1 to 3), Monte Carlo ``steps``, per-shell ``weights`` (default 1);
+    ``structures``: how many of the best distinct arrangements become structures;
+    ``vacancies``: whether vacancies on that sublattice take part as a species."""
 
     target: object = "quasirandom"
     shells: int = 3
     steps: int = 200_000
     weights: tuple[tuple[int, float], ...] = ()
+    structures: int = 1
+    vacancies: bool = False
 
     def __post_init__(self) -> None:
+        v.store(self, "structures", v.integer(self.structures, "structures", minimum=1))
+        if self.structures > MAX_STRUCTURES:
+            v.fail("structures", self.structures, f"must be at most {MAX_STRUCTURES}")
+        if not isinstance(self.vacancies, bool):
+            v.fail("vacancies", self.vacancies, "must be true or false",
+                   "true lets vacancies on the arranged sublattice take part as a species")
         if isinstance(self.target, str):
             if self.target != "quasirandom":
                 v.fail("target", self.target, "is not a known target",
@@ -193,6 +210,7 @@ class Defects:
     antisites: tuple[Antisite, ...] = ()
     schottky: Schottky | None = None
     arrangement: Arrangement | None = None
+    placement: str = "random"
     vacancies_listed: bool = field(default=True, init=False, repr=False, compare=False)
 
     def __post_init__(self) -> None:
@@ -213,6 +231,14 @@ class Defects:
         if self.min_separation is not None:
             v.store(self, "min_separation",
                     v.number(self.min_separation, "defects.min_separation"))
+        if self.placement not in PLACEMENTS:
+            v.fail("defects.placement", self.placement, "is not a known placement",
+                   "give random (the default) or distinct (every symmetry-distinct placement)")
+        if self.placement == "distinct":
+            for key in ("arrangement", "min_separation"):
+                if getattr(self, key) is not None:
+                    v.fail("defects.placement", self.placement, f"cannot be combined with "
+                           f"defects.{key}", "distinct already gives every placement")
 
     def vacancy_key(self, i: int) -> str:
         """The recipe key of vacancy request ``i``."""

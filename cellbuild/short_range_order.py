@@ -50,6 +50,22 @@ def sublattice_shells(crystal, label: str, n_shells: int = SHELLS):
     return distances, shells
 
 
+def alpha_table(counts, names, conc, present=None) -> dict:
+    """``{"A-B": [alpha per shell]}`` from pair counts ``(shells, m, m)`` (each
+    bond counted from both ends) and the concentration of each of the ``m``
+    species, for every pair of the ``present`` species (default all) in code
+    order, like pairs included; None for a shell where A has no neighbours."""
+    present = range(len(names)) if present is None else present
+    out = {}
+    for x, y in ((x, y) for i, x in enumerate(present) for y in list(present)[i:]):
+        values = []
+        for n in counts:
+            around = n[x].sum()
+            values.append(float(1.0 - (n[x, y] / around) / conc[y]) if around else None)
+        out[f"{names[x]}-{names[y]}"] = values
+    return out
+
+
 def warren_cowley(structure, crystal, repeat: tuple[int, int, int],
                   n_shells: int = SHELLS) -> dict | None:
     """Per sublattice holding two or more species: ``{"shells": [A...],
@@ -70,7 +86,6 @@ def warren_cowley(structure, crystal, repeat: tuple[int, int, int],
             continue
         conc = per / per.sum()
         distances, shells = sublattice_shells(crystal, label, n_shells)
-        alphas = {}
         pair_counts = []
         scaled = {s: grid[..., s] * k for s in sites}  # the centre's code, times k
         for offsets in shells:
@@ -83,12 +98,7 @@ def warren_cowley(structure, crystal, repeat: tuple[int, int, int],
                 counts += np.bincount((scaled[s] + partner).ravel(), minlength=k * k)
             half = counts.reshape(k, k)[:m, :m]
             pair_counts.append(half + half.T)
-        for x, y in ((x, y) for i, x in enumerate(present) for y in present[i:]):
-            values = []
-            for n in pair_counts:
-                around = n[x].sum()
-                values.append(float(1.0 - (n[x, y] / around) / conc[y]) if around else None)
-            alphas[f"{structure.symbols[x]}-{structure.symbols[y]}"] = values
+        alphas = alpha_table(np.array(pair_counts), structure.symbols, conc, present)
         out[label] = {"shells": distances,
                       "concentration": {structure.symbols[e]: float(conc[e]) for e in present},
                       "alpha": alphas}
@@ -125,13 +135,7 @@ def warren_cowley_of_file(structure, shell_radii: list[float]) -> dict | None:
     code = structure.species[i[ok]] * m + structure.species[j[ok]]
     counts = np.bincount(shell[ok] * m * m + code, minlength=n_shells * m * m)
     counts = counts.reshape(n_shells, m, m)
-    alphas = {}
-    for x, y in ((x, y) for a, x in enumerate(present) for y in present[a:]):
-        values = []
-        for k in range(n_shells):
-            around = counts[k, x].sum()
-            values.append(float(1.0 - (counts[k, x, y] / around) / conc[y]) if around else None)
-        alphas[f"{structure.symbols[x]}-{structure.symbols[y]}"] = values
+    alphas = alpha_table(counts, structure.symbols, conc, present)
     return {"shells": [float(r) for r in radii[:n_shells]], "centres": int(len(centres)),
             "concentration": {structure.symbols[e]: float(conc[e]) for e in present},
             "alpha": alphas}

@@ -25,6 +25,7 @@ from pathlib import Path
 from typing import Any, Iterator, Mapping
 
 from .errors import InputError
+from .variants import variants_of
 from .recipe import (ANTISITE_KEYS, ARRANGEMENT_KEYS, SCHOTTKY_KEYS, CHECK_KEYS, CRYSTAL_KEYS, DEFECT_KEYS, INTERSTITIAL_KEYS, NAME_PATTERN,
                      SIZE_KEYS, SUBSTITUTION_KEYS, TOP_KEYS, VACANCY_KEYS, Recipe, load_yaml,
                      parse_recipe)
@@ -73,12 +74,26 @@ def expand(data: Any, lines: Mapping[str, int] | None = None,
     ``folder``: where the recipe's relative paths (``crystal.cif``) are read from
     (default: the folder of ``file``).
 
+    Each point then becomes the structures it stands for
+    (:func:`cellbuild.variants.variants_of`: the N best arrangements, or every
+    distinct configuration, named ``POINT__sqs-K`` / ``POINT__config-K``).
+
     The last sweep key varies fastest. Raises :class:`InputError` naming the
     key for an unknown sweep key, an empty or non-list value list, more than
     :data:`MAX_POINTS` points, two points with the same name, or any point
     that is not a valid recipe.
     """
-    lines = dict(lines or {})
+    points = _sweep_points(data, dict(lines or {}), file, folder)
+    out = [Point(r.name, p.data, p.values, r) for p in points for r in variants_of(p.recipe)]
+    if len(out) > MAX_POINTS:
+        raise InputError(f"stands for {len(out):,} structures, more than the {MAX_POINTS:,} "
+                         f"allowed", key="defects.placement" if "__config-" in out[-1].name
+                         else "sweep", hint="split it over several recipes", file=file)
+    return out
+
+
+def _sweep_points(data: Any, lines: dict, file: str | None, folder: str | None) -> list[Point]:
+    """The validated points of the sweep (one point without a sweep), before variants."""
     if not isinstance(data, dict) or "sweep" not in data:
         recipe = parse_recipe(data, lines, file, folder=folder)
         return [Point(recipe.name, data, {}, recipe)]
