@@ -38,6 +38,8 @@ def describe(result: dict) -> str:
     if result["defects"] is not None:
         lines.append("  defects       " + _defects_text(result["defects"]))
     group = result["space_group"]
+    for label, order in (result.get("short_range_order") or {}).items():
+        lines.append(f"  order         {label}: " + _order_text(order))
     lines.append("  space group   " + (f"{group['symbol']} ({group['number']})" if group
                                       else result.get("space_group_note", "not determined")))
     for note in result.get("warnings", []):
@@ -63,6 +65,18 @@ def _lattice_text(result: dict) -> str:
             f"coordination {info['coordination']}, d2/d1 = {info['shell_ratio']:.4f}, "
             f"{info['sites']:.1f} sites for {result['n_atoms']:,} atoms, neighbour-count "
             f"misfit {info['shell_misfit'][result['lattice']]:.3f})")
+
+
+def _order_text(order: dict) -> str:
+    """Warren-Cowley alphas of the unlike pairs: the largest |alpha| per shell."""
+    unlike = [v for pair, v in order["alpha"].items() if pair.split("-")[0] != pair.split("-")[1]]
+    worst = []
+    for k, r in enumerate(order["shells"]):
+        values = [abs(v[k]) for v in unlike if v[k] is not None]
+        worst.append(f"shell {k + 1} ({r:.4f} A) max |alpha| {max(values):.3f}" if values
+                     else f"shell {k + 1} ({r:.4f} A) no pairs")
+    return (f"Warren-Cowley alphas over {len(unlike)} unlike pair(s) of "
+            f"{', '.join(order['concentration'])}: " + "; ".join(worst))
 
 
 def _or_unknown(value) -> str:

@@ -59,7 +59,7 @@ from .pair_shells import PairDistribution, find_shells, pair_distribution
 from .inspect_text import describe  # noqa: F401  (the text summary, importable from here)
 from .prototype_match import expected_names, match_prototype, prototype_text
 from .repeating_unit import repeating_unit, space_group
-from .short_range_order import SHELLS as SRO_SHELLS, warren_cowley_of_file
+from .short_range_order import SHELLS as SRO_SHELLS, order_of_file
 from .structure import Structure
 
 __all__ = ["EXPECT_CHOICES", "LatticeMatch", "PairDistribution", "analyse", "density",
@@ -186,10 +186,9 @@ def _analyse(structure, file, cutoff, expect, potential_cutoff, workers, source,
         if not site_count_reliable(match, first, n):
             result["defects"]["estimated_vacancies_from_sites"] = None  # see the note
         result["defects"]["note"] = defects_note(shells, result["defects"], match)
-    result["short_range_order"] = None  # alloys on one lattice; compounds need sublattices
-    if match and not prototype:
-        radii = [r * match.nearest for r in patterns()[match.name].distances[:SRO_SHELLS + 1]]
-        result["short_range_order"] = warren_cowley_of_file(structure, radii)
+    radii = ([r * match.nearest for r in patterns()[match.name].distances[:SRO_SHELLS + 1]]
+             if match else None)
+    result["short_range_order"] = order_of_file(structure, prototype, radii)
     result["space_group"], note = space_group(structure)
     if note:
         result["space_group_note"] = note

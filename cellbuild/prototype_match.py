@@ -296,11 +296,18 @@ def match_prototype(structure, *, pattern: str | None = None) -> tuple[dict | No
     One-element structures are never compounds: (None, None). When all elements
     together fit no prototype, elements under ``MINOR_FRACTION`` of the atoms
     (dopants, substituents) are left out and the rest matched again; the result
-    then lists them under ``minor_elements`` (element -> atoms).
+    then lists them under ``minor_elements`` (element -> atoms). Before that,
+    elements with the same surroundings are tried as one species on one
+    sublattice (:func:`element_groups`: a high-entropy oxide's cations); a
+    mixed sublattice's ``species`` then joins its elements with ``+`` and
+    ``occupants`` gives its atoms per element.
     """
     found, why = _match(structure, pattern)
     if found is not None:
         return found, why
+    mixed = _mixed_match(structure, pattern)
+    if mixed is not None:
+        return mixed, None
     counts = structure.counts()
     minor = np.flatnonzero((counts > 0) & (counts < MINOR_FRACTION * structure.n_atoms))
     if minor.size == 0 or np.count_nonzero(counts) - minor.size < 2:
@@ -315,6 +322,64 @@ def match_prototype(structure, *, pattern: str | None = None) -> tuple[dict | No
         return found, why
     again["minor_elements"] = {structure.symbols[c]: int(counts[c]) for c in minor}
     return again, None
+
+
+#: Elements share a sublattice when the shares of each element among their first
+#: neighbours differ by less than this in sum (0 for equal surroundings, 2 for
+#: surroundings with nothing in common: in rock salt each cation is surrounded by
+#: oxygen alone, in an ordered L1_2 Au by Cu alone but Cu by Cu and Au).
+SAME_SURROUNDINGS = 0.5
+#: First neighbours: closer than this times the median nearest distance.
+FIRST_SHELL_MARGIN = 1.15
+
+
+def element_groups(structure) -> list[list[str]]:
+    """The structure's elements grouped by their first-neighbour surroundings (see
+    :data:`SAME_SURROUNDINGS`), each group in type order, groups by first member."""
+    sample = _sample(structure, _reach())
+    finite = sample.nearest[np.isfinite(sample.nearest)]
+    if finite.size == 0:
+        return [[e] for e in sample.elements]
+    r = FIRST_SHELL_MARGIN * float(np.median(finite))
+    shares = []
+    for e in range(len(sample.elements)):  # a handful of elements
+        c = _counts(sample, e, r).sum(axis=0).astype(float)
+        shares.append(c / max(c.sum(), 1.0))
+    groups: list[list[int]] = []
+    for e in np.argsort(-sample.atoms, kind="stable"):  # most abundant first
+        home = next((g for g in groups if np.abs(shares[g[0]] - shares[e]).sum()
+                     < SAME_SURROUNDINGS), None)
+        if home is None:
+            groups.append([int(e)])
+        else:
+            home.append(int(e))
+    groups = sorted(sorted(g) for g in groups)
+    return [[sample.elements[e] for e in g] for g in groups]
+
+
+def _mixed_match(structure, pattern: str | None) -> dict | None:
+    """The prototype of ``structure`` with each group of :func:`element_groups`
+    taken as one species, or None when no group holds two elements or none fits."""
+    from .structure import Structure
+
+    groups = element_groups(structure)
+    if len(groups) < 2 or all(len(g) == 1 for g in groups):
+        return None
+    group_of = np.zeros(len(structure.symbols), dtype=np.int32)
+    for k, g in enumerate(groups):
+        group_of[[structure.symbols.index(e) for e in g]] = k
+    grouped = Structure(structure.cell, structure.positions, group_of[structure.species],
+                        tuple(g[0] for g in groups))
+    found, _ = _match(grouped, pattern)
+    if found is None:
+        return None
+    counts = structure.counts()
+    by_first = {g[0]: g for g in groups}
+    found["occupants"] = {label: {e: int(counts[structure.symbols.index(e)])
+                                  for e in by_first[first]}
+                          for label, first in found["species"].items() if len(by_first[first]) > 1}
+    found["species"] = {label: "+".join(by_first[first]) for label, first in found["species"].items()}
+    return found
 
 
 def _match(structure, pattern: str | None) -> tuple[dict | None, str | None]:

@@ -139,3 +139,33 @@ def warren_cowley_of_file(structure, shell_radii: list[float]) -> dict | None:
     return {"shells": [float(r) for r in radii[:n_shells]], "centres": int(len(centres)),
             "concentration": {structure.symbols[e]: float(conc[e]) for e in present},
             "alpha": alphas}
+
+
+def order_of_file(structure, prototype: dict | None, lattice_radii: list[float] | None
+                  ) -> dict | None:
+    """``inspect``'s alphas per sublattice, like the report's: for a compound
+    prototype match, each sublattice holding two or more elements (``occupants``),
+    shells from that sublattice's own geometry at the matched lattice constant;
+    otherwise, when the atoms share one lattice (``lattice_radii``, its ideal shell
+    distances in Angstrom), that lattice as sublattice ``A``. None when no
+    sublattice is mixed."""
+    from .crystal import resolve_crystal
+    from .structure import Structure
+
+    if prototype is None:
+        if lattice_radii is None:
+            return None
+        found = warren_cowley_of_file(structure, lattice_radii)
+        return None if found is None else {"A": found}
+    out = {}
+    species = tuple((label, text.split("+")[0]) for label, text in prototype["species"].items())
+    crystal = resolve_crystal(prototype["name"], prototype["lattice_constant"], species)
+    for label, occupants in (prototype.get("occupants") or {}).items():
+        distances, _ = sublattice_shells(crystal, label, SHELLS + 1)
+        keep = np.isin(structure.species, [structure.symbols.index(e) for e in occupants])
+        on_it = Structure(structure.cell, structure.positions[keep], structure.species[keep],
+                          structure.symbols)
+        found = warren_cowley_of_file(on_it, distances)
+        if found is not None:
+            out[label] = found
+    return out or None

@@ -183,7 +183,7 @@ def test_random_two_species_diamond_is_not_zincblende():
 
 def test_a_doped_compound_is_matched_with_its_dopant_named(cli, recipe_file, tmp_path):
     """8 % Ni on the Mg sites of rock salt MgO (a third element, textbook rock salt
-    otherwise): matched as rock salt with the dopant listed, and the net charge of
+    otherwise): matched as rock salt with the dopant on the Mg sites, and the net charge of
     a charged LAMMPS file is read back (formal charges, common practice)."""
     import json as _json
 
@@ -199,6 +199,8 @@ def test_a_doped_compound_is_matched_with_its_dopant_named(cli, recipe_file, tmp
         result = cli("inspect", out / name, "--json", "--types", "Mg,O,Ni")
         report = _json.loads(result.output)
         assert report["lattice"] == "rocksalt", name
-        assert report["prototype"]["species"] == {"A": "Mg", "B": "O"}
-        assert report["prototype"]["minor_elements"] == {"Ni": 40}  # 8 % of 500 sites
+        # Ni has the surroundings of Mg (six O): the dopant is named on its sublattice
+        assert report["prototype"]["species"] == {"A": "Mg+Ni", "B": "O"}
+        assert report["prototype"]["occupants"] == {"A": {"Mg": 460, "Ni": 40}}  # 8 % of 500
+        assert set(report["short_range_order"]) == {"A"}
         assert report["net_charge"] == pytest.approx(4.0)

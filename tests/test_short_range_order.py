@@ -96,8 +96,35 @@ def test_inspect_gives_the_same_alphas_as_the_report(cli, recipe_file, tmp_path)
     report = json.loads((out / "cuni.report.json").read_text())["short_range_order"]["A"]
     for name in ("cuni.xyz", "cuni.lmp"):
         found = json.loads(cli("inspect", out / name, "--json", "--types", "Cu,Ni")
-                           .output)["short_range_order"]
+                           .output)["short_range_order"]["A"]
         assert found["centres"] == 864
         assert found["shells"] == pytest.approx(report["shells"])
         for pair, values in report["alpha"].items():
             assert found["alpha"][pair] == pytest.approx(values, abs=1e-12), pair
+
+
+def test_inspect_gives_a_compounds_cation_alphas_as_the_report_does(cli, recipe_file, tmp_path):
+    """A rock-salt high-entropy oxide (five cations on A, O on B): `inspect` finds the
+    cations sharing one sublattice (each surrounded by six O, rock-salt geometry,
+    common practice) and counts their alphas on it by a neighbour search, equal to the
+    report's grid count; the O sublattice holds one species and has none."""
+    cations = ("Co", "Ni", "Cu", "Zn")
+    data = {"name": "heo", "seed": 3, "outputs": ["xyz", "lammps-data"],
+            "crystal": {"lattice": "rocksalt", "species": {"A": "Mg", "B": "O"}, "a": 4.22},
+            "size": {"repeat": [2, 2, 5]},
+            "defects": {"substitutions": [{"element": e, "count": 16, "on": "A"} for e in cations]}}
+    out = tmp_path / "out"
+    assert cli("make", recipe_file(data), "--out", out).exit_code == 0
+    report = json.loads((out / "heo.report.json").read_text())["short_range_order"]
+    assert set(report) == {"A"}
+    for name in ("heo.xyz", "heo.lmp"):
+        found = json.loads(cli("inspect", out / name, "--json", "--types", "Mg,O,Co,Ni,Cu,Zn")
+                           .output)
+        assert found["lattice"] == "rocksalt"
+        assert found["prototype"]["occupants"]["A"] == {"Mg": 16, "Co": 16, "Ni": 16, "Cu": 16,
+                                                       "Zn": 16}
+        order = found["short_range_order"]
+        assert set(order) == {"A"}
+        assert order["A"]["shells"] == pytest.approx(report["A"]["shells"])
+        for pair, values in report["A"]["alpha"].items():
+            assert order["A"]["alpha"][pair] == pytest.approx(values, abs=1e-12), pair
