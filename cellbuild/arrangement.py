@@ -24,7 +24,7 @@ import numpy as np
 from numba import njit
 
 from .errors import InputError
-from .short_range_order import sublattice_shells
+from .short_range_order import VACANCY, sublattice_shells
 
 
 @njit(cache=True)
@@ -227,18 +227,9 @@ def arrange(plan, perfect, placements, rng: np.random.Generator, progress=None):
     weights = np.array([dict(request.weights).get(i + 1, 1.0) for i in range(k)])
     target = np.array([request.target_of(i + 1) for i in range(k)])
     rank = plan.recipe.variant or 1 if request.structures > 1 else 1
-    tell = None
-    if progress is not None:
-        marks = iter(range(10, 101, 10))
-        due = [next(marks)]
-
-        def tell(fraction, best):
-            while due[0] is not None and fraction * 100 >= due[0]:
-                progress(f"arrangement {due[0]} % (best objective {best:.3g})")
-                due[0] = next(marks, None)
-
     rows, objectives, taken, start_f = search(spec, table, weights, target, conc, request.steps,
-                                              rng, keep=request.structures, progress=tell)
+                                              rng, keep=request.structures,
+                                              progress=_every_tenth(progress))
     found = int(np.isfinite(objectives).sum())
     if found < rank:
         raise InputError(f"asks for more arrangements than the {found} distinct ones the search "
@@ -274,8 +265,21 @@ def best_random(spec, table, weights, target, conc, rng, draws: int = RANDOM_DRA
     return float(best)
 
 
-#: The name of a vacant site taking part in the search, in the facts' pairs.
-VACANCY = "Va"
+
+
+def _every_tenth(progress):
+    """A ``search`` progress callback passing ``progress`` one line per 10 % (None: None)."""
+    if progress is None:
+        return None
+    marks = iter(range(10, 101, 10))
+    due = [next(marks)]
+
+    def tell(fraction, best):
+        while due[0] is not None and fraction * 100 >= due[0]:
+            progress(f"arrangement {due[0]} % (best objective {best:.3g})")
+            due[0] = next(marks, None)
+
+    return tell
 
 
 def _arranged_sublattice(plan, placements) -> str:

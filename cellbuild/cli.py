@@ -171,6 +171,17 @@ def _summary(result) -> None:
     for c in r["checks"]:
         if not c["passed"]:
             typer.echo(f"  failed {c['name']}: {c['detail']}")
+    arranged, config = r.get("arrangement"), r.get("configuration")
+    if arranged:
+        rank = f" (rank {arranged['rank']} of {arranged['of']})" if "rank" in arranged else ""
+        typer.echo(f"  arrangement  objective {arranged['objective']:.4g}{rank}; best of "
+                   f"{arranged['random_draws']} random draws {arranged['best_random_objective']:.4g}; "
+                   f"{arranged['steps']:,} steps")
+    if config:
+        pair = (f", defects {config['pair_distance']:.4f} A apart" if config["pair_distance"]
+                is not None else "")
+        typer.echo(f"  placement    configuration {config['index']} of {config['configurations']}, "
+                   f"multiplicity {config['multiplicity']:,} of {config['placements']:,}{pair}")
     for key, info in r["outputs"].items():
         typer.echo(f"  {key:12s} {info['path']}  {info['bytes']:,} bytes")
     typer.echo(f"  report       {result.report_path}")

@@ -11,7 +11,10 @@ Shells are those of the sublattice's own sites (distances from the crystal's
 geometry, equal within 1e-6 a), and pairs are counted on the grid of sites the
 structure was built on: one shifted copy of the species grid per neighbour
 offset, no neighbour search, so a 1M-atom alloy takes a fraction of a second.
-Vacant sites and interstitial atoms take no part.
+Vacant sites take no part in the atoms' alphas; a sublattice with vacancies
+also gives the alphas of the pairs with a vacant site (``Va``) under
+``vacancies``, over all its sites (so a pure metal's divacancy has them).
+Interstitial atoms take no part.
 """
 from __future__ import annotations
 
@@ -22,6 +25,9 @@ import numpy as np
 
 #: Neighbour shells reported per sublattice.
 SHELLS = 3
+
+#: The name of a vacant lattice site in the vacancies' pairs.
+VACANCY = "Va"
 
 
 def sublattice_shells(crystal, label: str, n_shells: int = SHELLS):
@@ -80,9 +86,10 @@ def warren_cowley(structure, crystal, repeat: tuple[int, int, int],
     out = {}
     for label in dict.fromkeys(crystal.sublattice):
         sites = [i for i, lb in enumerate(crystal.sublattice) if lb == label]
-        per = np.bincount(grid[..., sites].ravel(), minlength=k)[:m]
+        on_sites = np.bincount(grid[..., sites].ravel(), minlength=k)  # vacancies last
+        per = on_sites[:m]
         present = np.flatnonzero(per)
-        if len(present) < 2:
+        if len(present) < 2 and not (on_sites[m] and len(present)):
             continue
         conc = per / per.sum()
         distances, shells = sublattice_shells(crystal, label, n_shells)
@@ -96,13 +103,28 @@ def warren_cowley(structure, crystal, repeat: tuple[int, int, int],
                     continue
                 partner = np.roll(grid[..., t], (-di, -dj, -dk), axis=(0, 1, 2))
                 counts += np.bincount((scaled[s] + partner).ravel(), minlength=k * k)
-            half = counts.reshape(k, k)[:m, :m]
+            half = counts.reshape(k, k)
             pair_counts.append(half + half.T)
-        alphas = alpha_table(np.array(pair_counts), structure.symbols, conc, present)
+        pair_counts = np.array(pair_counts)
+        alphas = alpha_table(pair_counts[:, :m, :m], structure.symbols, conc, present)
         out[label] = {"shells": distances,
                       "concentration": {structure.symbols[e]: float(conc[e]) for e in present},
-                      "alpha": alphas}
+                      "alpha": alphas, "vacancies": None}
+        if on_sites[m]:
+            out[label]["vacancies"] = _vacancy_order(pair_counts, on_sites, structure.symbols)
     return out or None
+
+
+def _vacancy_order(pair_counts, on_sites, symbols) -> dict:
+    """The alphas of the pairs with a vacant site (``Va``), the sublattice's sites
+    counted vacancies included (concentrations are shares of its sites): a
+    divacancy or vacancy clustering shows here, the atoms' alphas stay as they are."""
+    names = list(symbols) + [VACANCY]
+    present = np.flatnonzero(on_sites)
+    conc = on_sites / on_sites.sum()
+    every = alpha_table(pair_counts, names, conc, present)
+    return {"concentration": {names[e]: float(conc[e]) for e in present},
+            "alpha": {pair: v for pair, v in every.items() if VACANCY in pair.split("-")}}
 
 
 #: Centre atoms drawn (seeded) for the alphas of a file: exact up to this many atoms.

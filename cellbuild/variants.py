@@ -7,8 +7,9 @@ structures, each a recipe of its own with a ``variant`` number:
   the search meets, ``NAME__sqs-1`` (best) to ``NAME__sqs-N``;
 * ``defects.placement: distinct`` -- every symmetry-inequivalent placement of
   the requested defects in the supercell, ``NAME__config-1`` to
-  ``NAME__config-M``, in the lexicographic order of each configuration's
-  smallest grid site ids.
+  ``NAME__config-M``, compact ones first: by the sum of the periodic distances
+  between the defects, ties in the lexicographic order of each
+  configuration's smallest grid site ids.
 
 For ``distinct``, the symmetry operations are those spglib finds for the perfect
 supercell (translations included), with every grid site of it, interstitial
@@ -27,7 +28,12 @@ import numpy as np
 
 from .errors import InputError
 
-#: Separator and labels of the variant names.
+#: Largest supercell (grid sites, interstitial sites included) that ``distinct``
+#: enumerates on: every symmetry operation (48 x lattice points for cubic cells) is
+#: held as a permutation of the sites, about 2 s and 200 MB at this size.
+MAX_SITES = 640
+
+#: Labels of the variant names.
 SQS_LABEL = "sqs"
 CONFIG_LABEL = "config"
 
@@ -72,40 +78,56 @@ def variants_of(recipe):
 
 def configurations(plan) -> Configurations:
     """The distinct configurations of ``plan``'s defect requests (cached per recipe)."""
-    return _configurations(replace(plan.recipe, name="x", variant=None), plan)
+    return _configurations(replace(plan.recipe, name="x", variant=None))
 
 
 @lru_cache(maxsize=4)
-def _configurations(key, plan) -> Configurations:
-    # ``key`` (the recipe without its name) is what the cache looks at; plans of
-    # equal recipes are equal, so the first plan seen serves for all
-    del key
-    from .build import site_positions
-    from .configurations import TooManyPlacements, distinct_placements, site_permutations
+def _configurations(recipe) -> Configurations:
+    # keyed by the recipe without its name and variant: every variant of a recipe
+    # (and every sweep point differing only in name) shares one enumeration
+    from .build import resolve, site_positions
+    from .configurations import (MAX_PLACEMENTS, count_placements, distinct_placements,
+                                 site_permutations)
 
-    crystal, recipe = plan.crystal, plan.recipe
+    plan = resolve(recipe)
+    crystal = plan.crystal
     counts = list(plan.defect_counts)
     if not any(n for _, n in counts):
         raise InputError("has no defects to place", key="defects.placement", value="distinct",
                          hint="ask for vacancies, substitutions or interstitials",
                          file=recipe.source)
-    n_sites = plan.n_cells * crystal.n_grid
-    ids = np.arange(n_sites, dtype=np.int64)
+    # the lattice sites and the interstitial kinds asked for: the operations of the
+    # lattice map each of those sets onto itself, so the others can be left out
+    used = sorted(set(range(crystal.n_basis)).union(*(req.sites for req, _ in counts)))
+    cells = np.arange(plan.n_cells, dtype=np.int64)[:, None]
+    ids = (cells * crystal.n_grid + np.array(used)[None, :]).ravel()  # ascending
+    if ids.size > MAX_SITES:
+        raise InputError(f"needs a supercell of at most {MAX_SITES} sites (lattice and "
+                         f"interstitial sites asked for); this one has {ids.size:,}",
+                         key="defects.placement", value="distinct",
+                         hint="choose a smaller size", file=recipe.source)
     frac = site_positions(crystal, plan.repeat, ids) @ np.linalg.inv(supercell(plan))
     kinds = [crystal.sublattice[s] if s < crystal.n_basis else f"interstitial {crystal.site_kind[s]}"
-             for s in range(crystal.n_grid)]
-    codes = np.unique(kinds, return_inverse=True)[1]
-    types = np.tile(codes, plan.n_cells)
-    groups = [((np.arange(plan.n_cells)[:, None] * crystal.n_grid
-                + np.array(req.sites)[None, :]).ravel(), n) for req, n in counts]
-    perms = site_permutations(supercell(plan), frac - np.floor(frac), types)
-    try:
-        sites, multiplicity = distinct_placements(perms, groups)
-    except TooManyPlacements as exc:
-        raise InputError(f"gives {exc.count:,} placements, more than the {exc.limit:,} "
+             for s in used]
+    types = np.tile(np.unique(kinds, return_inverse=True)[1], plan.n_cells)
+    groups = [(np.searchsorted(ids, (cells * crystal.n_grid + np.array(req.sites)[None, :])
+                               .ravel()), n) for req, n in counts]
+    total = count_placements(groups)  # refuse before finding the symmetry
+    if total > MAX_PLACEMENTS:
+        raise InputError(f"gives {total:,} placements, more than the {MAX_PLACEMENTS:,} "
                          f"cellbuild enumerates", key="defects.placement", value="distinct",
                          hint="use a smaller cell or fewer defects, or placement: random",
-                         file=recipe.source) from None
+                         file=recipe.source)
+    perms = site_permutations(supercell(plan), frac - np.floor(frac), types)
+    found, multiplicity = distinct_placements(perms, groups)
+    sites = ids[found]  # back to grid site ids (the map keeps the order)
+    # compact configurations first (a divacancy's first neighbours are config-1):
+    # by the sum of periodic distances between the defects, to 1e-6 A, then as found
+    pos = site_positions(crystal, plan.repeat, sites.ravel()).reshape(*sites.shape, 3)
+    i, j = np.triu_indices(sites.shape[1], 1)
+    spread = periodic_distances(supercell(plan), pos[:, j] - pos[:, i]).sum(axis=1)
+    order = np.lexsort((np.arange(len(sites)), np.round(spread, 6)))
+    sites, multiplicity = sites[order], multiplicity[order]
     edges = np.cumsum([0] + [n for _, n in counts])
     return Configurations(sites, multiplicity, tuple(zip(edges[:-1].tolist(), edges[1:].tolist())),
                           int(multiplicity.sum()), int(perms.shape[0]))
@@ -131,19 +153,19 @@ def configuration_facts(plan) -> dict:
              "operations": found.operations, "pair_distance": None}
     if found.sites.shape[1] == 2:
         pos = site_positions(plan.crystal, plan.repeat, found.sites[k - 1])
-        facts["pair_distance"] = round(periodic_distance(supercell(plan),
-                                                         pos[1] - pos[0]), 10)
+        facts["pair_distance"] = round(float(periodic_distances(supercell(plan),
+                                                                pos[1] - pos[0])), 10)
     return facts
 
 
-def periodic_distance(cell: np.ndarray, delta: np.ndarray) -> float:
-    """The shortest length (Angstrom) of ``delta`` plus any lattice vector of ``cell``
-    (rows): wrapped to the nearest image, then the 27 neighbouring images tried,
-    which is exact for the reduced-enough cells cellbuild builds."""
+def periodic_distances(cell: np.ndarray, delta: np.ndarray) -> np.ndarray:
+    """The shortest lengths (Angstrom) of the vectors ``delta`` (..., 3) plus any
+    lattice vector of ``cell`` (rows): wrapped to the nearest image, then the 27
+    neighbouring images tried, which is exact for the reduced cells cellbuild builds."""
     f = delta @ np.linalg.inv(cell)
     f -= np.round(f)
     shifts = np.array([(i, j, k) for i in (-1, 0, 1) for j in (-1, 0, 1) for k in (-1, 0, 1)])
-    return float(np.linalg.norm((f + shifts) @ cell, axis=1).min())
+    return np.linalg.norm((f[..., None, :] + shifts) @ cell, axis=-1).min(axis=-1)
 
 
 def _variant(plan, count: int) -> int:

@@ -6,7 +6,9 @@ recipes/oxides: MgO with Schottky defects, SrTiO3 with oxygen vacancies and
 charges, GaAs with antisites, spinel MgAl2O4, hcp Ti with an octahedral
 interstitial and rutile from a CIF. recipes/interfaces: a Cu(111) slab with
 vacuum, a W box along [111] for a screw dislocation, a sqrt2 x sqrt2 x 2 MgO
-cell from a matrix and a Sigma 5 (310)[001] tilt boundary in Cu.
+cell from a matrix and a Sigma 5 (310)[001] tilt boundary in Cu. recipes/alloys:
+quasirandom CuNi and five-component cells, a rock-salt high-entropy oxide, and
+every distinct divacancy and solute pair of two small cells.
 """
 from __future__ import annotations
 
@@ -28,7 +30,7 @@ def _points(folder: str):
             for point in expand_file(path)]
 
 
-@pytest.fixture(scope="module", params=["oxides", "interfaces"])
+@pytest.fixture(scope="module", params=["oxides", "interfaces", "alloys"])
 def built(request, tmp_path_factory):
     from cellbuild.pipeline import make
 
@@ -40,7 +42,18 @@ def built(request, tmp_path_factory):
 def test_the_library_holds_each_material_and_every_audit_passes(built):
     _, reports = built
     lattices = Counter(r["lattice"] for r in reports.values())
-    if "mgo-schottky__count-1" in reports:
+    if "cuni-sqs" in reports:
+        # every structure of the alloy library reports its short-range order
+        assert all(r["short_range_order"] for r in reports.values())
+        for study, sites in (("ni-divacancy", 108), ("alcu-pair", 32)):
+            configs = [r["configuration"] for n, r in reports.items() if n.startswith(study)]
+            # the multiplicities count every pair of sites once (combinatorics)
+            assert sum(c["multiplicity"] for c in configs) == sites * (sites - 1) // 2
+        heo = reports["heo-rocksalt"]
+        assert heo["sublattices"]["B"] == {"O": 80} and set(heo["short_range_order"]) == {"A"}
+        assert {r["arrangement"]["rank"] for n, r in reports.items() if n.startswith("cantor")} \
+            == {1, 2}
+    elif "mgo-schottky__count-1" in reports:
         assert {"rocksalt", "perovskite", "zincblende", "spinel", "hcp", "cif"} <= set(lattices)
     else:
         kinds = {("surface" if r["surface"] else "boundary" if r["grain_boundary"] else
