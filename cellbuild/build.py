@@ -17,6 +17,7 @@ from pathlib import Path
 import numpy as np
 
 from .errors import InputError
+from .formats import FORMATS
 from .crystal import Crystal, resolve_cif, resolve_crystal
 from .defect_plan import count_defects
 from .lattices import LATTICES, touching_radius_factor
@@ -32,8 +33,6 @@ BYTES_PER_ATOM = 400
 #: Hard limits (Angstrom): beyond them numbers no longer fit the fixed-width
 #: output fields with 1e-10 Angstrom resolution; far outside any real crystal.
 MIN_CONSTANT, MAX_CONSTANT, MAX_BOX = 0.01, 1000.0, 1.0e6
-#: Approximate bytes per atom of each output file (one line per atom).
-FILE_BYTES_PER_ATOM = {"lammps-data": 70, "cif": 60, "xyz": 60, "poscar": 48}
 
 
 def standard_atomic_weight(symbol: str) -> float:
@@ -288,7 +287,7 @@ def resolve(recipe: Recipe, *, strict: bool = False) -> Plan:
     n_sites = crystal.n_basis * math.prod(repeat)  # Python ints: absurd sizes must not overflow
     n_atoms = n_sites  # before defects; see defect_counts
     memory = BYTES_PER_ATOM * n_sites
-    files = {k: FILE_BYTES_PER_ATOM[k] * n_sites for k in recipe.outputs}
+    files = {k: FORMATS[k].bytes_per_atom * n_sites for k in recipe.outputs}
     available = _physical_memory()
     if available and memory > 0.8 * available:
         raise InputError(

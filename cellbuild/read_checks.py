@@ -52,7 +52,7 @@ def check_claimed_counts(path: Path, fmt: str) -> None:
             claim = _count_at(lines, k, r"\s*(\d+)\s+atoms\s*")
             if claim is not None:
                 break
-    elif fmt == "vasp":
+    elif fmt == "poscar":
         claim = _poscar_counts(path, lines)
     if claim is not None and claim[0] * MIN_ROW_BYTES > size:
         count, line = claim

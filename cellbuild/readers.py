@@ -28,6 +28,7 @@ from .cif_text import (check_cif_complete, check_cif_loop_rows, check_cif_number
                        check_cif_symbol_column, cif_loops, cif_partial_occupancy, fast_p1_cif,
                        refuse_large_cif_table)
 from .errors import InputError
+from .formats import FORMATS, format_named, format_sniffed, title_of
 from .read_checks import check_claimed_counts, check_poscar, check_values
 from .read_lammps import (element_of_mass, fast_lammps, lammps_header, line_starts, load_rows,
                           type_symbols)
@@ -37,13 +38,8 @@ from .structure import Structure
 __all__ = ["FAST_READ_MIN_BYTES", "FORMAT_TITLES", "ReadResult", "detect_format",
            "element_of_mass", "read_file", "read_structure"]
 
-#: Formats and how a user would recognise them in messages.
-FORMAT_TITLES = {
-    "cif": "CIF",
-    "xyz": "extended XYZ",
-    "lammps-data": "LAMMPS data",
-    "vasp": "POSCAR",
-}
+#: Formats and how a user would recognise them in messages (from the registry).
+FORMAT_TITLES = {key: f.title for key, f in FORMATS.items()}
 #: Files at least this large (bytes) of a format with a fast path skip ASE's
 #: line-by-line parser (about 30,000 atoms; below it ASE takes < 0.2 s).
 FAST_READ_MIN_BYTES = 2_000_000
@@ -104,7 +100,7 @@ def read_file(path, types: list[str] | None = None, *, fast: bool | None = None)
     check_claimed_counts(path, fmt)
     with warnings.catch_warnings(record=True) as caught:
         warnings.simplefilter("always")
-        result = _READERS[fmt](path, types, fast)
+        result = FORMATS[fmt].reader()(path, types, fast)
     result.warnings += [_one_line(w.message) for w in caught
                         if not issubclass(w.category, DeprecationWarning)]
     _check_periodic(result.structure, path, fmt)
@@ -135,50 +131,14 @@ def _head(path: Path) -> str:
 
 
 def detect_format(path: Path, head: str) -> str:
-    """Format key from the file name, else from the first lines ``head``."""
-    name = path.name.lower()
-    suffix = path.suffix.lower()
-    if suffix == ".cif":
-        return "cif"
-    if suffix in (".xyz", ".extxyz"):
-        return "xyz"
-    if suffix in (".lmp", ".data", ".lammps") or "data." in name:
-        return "lammps-data"
-    if suffix in (".vasp", ".poscar") or name.startswith(("poscar", "contcar")):
-        return "vasp"
-    return _sniff(path, head)
-
-
-def _sniff(path: Path, head: str) -> str:
-    lines = head.splitlines()[:60]
-    stripped = [ln.strip() for ln in lines]
-    if any(s.startswith("data_") or s.startswith("_cell_length_a") for s in stripped):
-        return "cif"
-    if stripped and re.fullmatch(r"\d+", stripped[0]):
-        return "xyz"
-    if any(re.fullmatch(r"\d+\s+atoms", s.split("#")[0].strip()) for s in stripped):
-        return "lammps-data"
-    if len(stripped) > 5 and _floats(stripped[1], 1) and all(
-            _floats(s, 3) for s in stripped[2:5]):
-        return "vasp"
-    raise InputError("is in a format cellbuild cannot tell from its name or first lines",
-                     file=str(path),
-                     hint="name it *.cif, *.xyz, *.lmp / *.data, or POSCAR / *.vasp")
-
-
-def _floats(text: str, n: int) -> bool:
-    """True if ``text`` starts with at least ``n`` numbers."""
-    parts = text.split()
-    if len(parts) < n:
-        return False
-    try:
-        [float(p) for p in parts[:n]]
-    except ValueError:
-        return False
-    return True
-
-
-# ----------------------------------------------------------------------------- through ASE
+    """Format key from the file name, else from the first lines ``head`` (the registry's
+    ``named`` and ``sniff`` of each format)."""
+    found = format_named(path) or format_sniffed([ln.strip() for ln in head.splitlines()[:60]])
+    if found is None:
+        raise InputError("is in a format cellbuild cannot tell from its name or first lines",
+                         file=str(path),
+                         hint="name it " + ", ".join(f.name_hint for f in FORMATS.values()))
+    return found.key
 
 
 def _ase_read(path: Path, fmt: str, **kwargs):
@@ -193,8 +153,8 @@ def _ase_read(path: Path, fmt: str, **kwargs):
 
 def _unreadable(path: Path, fmt: str, exc: BaseException, line: int | None = None) -> InputError:
     what = _one_line(exc) or type(exc).__name__
-    key = "xyz" if fmt == "extxyz" else fmt
-    title = FORMAT_TITLES.get(key, fmt)
+    key = next((k for k, f in FORMATS.items() if f.ase_format == fmt), fmt)
+    title = title_of(fmt)
     if line is None:
         line = _locate_problem(path, key)
     if line is not None:
@@ -208,7 +168,7 @@ def _one_line(message) -> str:
     return " ".join(str(message).split())[:200]
 
 
-def _read_cif(path: Path, types, fast) -> ReadResult:
+def read_cif(path: Path, types, fast) -> ReadResult:
     """A numpy reader for plain P 1 files (ASE's CIF reader checks every new
     site against all earlier ones, which takes minutes at 60,000 atoms); ASE's
     reader for everything else; pymatgen's parser when ASE refuses the file."""
@@ -262,7 +222,7 @@ def _pymatgen_cif(path: Path, ase_error: InputError) -> Structure:
         raise ase_error from None
 
 
-def _read_xyz(path: Path, types, fast) -> ReadResult:
+def read_xyz(path: Path, types, fast) -> ReadResult:
     if fast:
         structure = _fast_xyz(path)
         if structure is not None:
@@ -312,12 +272,12 @@ def _warn_pbc(pbc) -> None:
                       "three cell vectors", UserWarning, stacklevel=2)
 
 
-def _read_vasp(path: Path, types, fast) -> ReadResult:
+def read_poscar(path: Path, types, fast) -> ReadResult:
     check_poscar(path)
-    return ReadResult(Structure.from_ase(_ase_read(path, "vasp")), "vasp", "ase")
+    return ReadResult(Structure.from_ase(_ase_read(path, "vasp")), "poscar", "ase")
 
 
-def _read_lammps(path: Path, types, fast) -> ReadResult:
+def read_lammps(path: Path, types, fast) -> ReadResult:
     header = lammps_header(path)
     # the numpy reader validates every atom row, so that ASE is not handed a
     # malformed one (it raises RuntimeError or TypeError on those)
@@ -339,7 +299,6 @@ def _read_lammps(path: Path, types, fast) -> ReadResult:
     return ReadResult(Structure.from_ase(atoms), "lammps-data", "ase")
 
 
-_READERS = {"cif": _read_cif, "xyz": _read_xyz, "lammps-data": _read_lammps, "vasp": _read_vasp}
 
 
 # ----------------------------------------------------------------------------- fast paths
@@ -450,7 +409,7 @@ def _atom_table(lines: list[str], fmt: str):
             at = next(k for k, ln in enumerate(lines) if ln.split("#")[0].strip() == "Atoms")
             first = next((k for k in range(at + 1, len(lines)) if lines[k].strip()), len(lines))
             return first, n, 5
-        if fmt == "vasp":
+        if fmt == "poscar":
             # the coordinate-mode line (Direct / Cartesian) follows the counts line,
             # or "Selective dynamics" does and the mode line comes after it
             at = next(k for k in range(6, min(len(lines), 10)) if re.fullmatch(

@@ -28,13 +28,15 @@ from .recipe_defects import (Amount, Antisite, Arrangement, Defects, Interstitia
                              Substitution,
                              Vacancies)
 from .recipe_lattices import interstitial_sites, sites_hint
+from .formats import FORMATS
 from .yamlread import load_yaml, parse_yaml
 
 
 __all__ = ["Amount", "Antisite", "Checks", "Crystal", "Defects", "Interstitial", "Recipe",
            "GrainBoundary", "Schottky", "Size", "Substitution", "Surface", "Vacancies", "load_recipe", "load_yaml", "parse_recipe", "parse_yaml"]
 
-FORMAT_KEYS = ("lammps-data", "cif", "xyz", "poscar")
+#: Output format keys, from the format registry.
+FORMAT_KEYS = tuple(FORMATS)
 NAME_PATTERN = re.compile(r"^[A-Za-z0-9_.-]{1,200}$")
 DEFAULT_OUTPUTS = FORMAT_KEYS
 

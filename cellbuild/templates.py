@@ -1,6 +1,7 @@
 """Commented starter recipes, one per lattice, that `make` accepts as they are."""
 from __future__ import annotations
 
+from .formats import FORMATS
 from .errors import InputError
 from .lattices import LATTICES
 from .prototypes import PROTOTYPES
@@ -27,7 +28,7 @@ size:
   # atoms: 2000
   # min_length: 20.0
 seed: 1                         # seeds the random placement of defects
-outputs: [lammps-data, cif, xyz, poscar]
+outputs: [{outputs}]
 # types: [{element}]              # LAMMPS type order; may list elements a structure lacks
 # defects:
 #   vacancies: {{count: 1}}      # or {{fraction: 0.01}}; optional on: {element}
@@ -53,7 +54,7 @@ crystal:
 {parameters}size:
   repeat: [3, 3, 3]             # exactly one of: repeat | atoms (target count) | min_length (Angstrom)
 seed: 1                         # seeds the random placement of defects
-outputs: [lammps-data, cif, xyz, poscar]
+outputs: [{outputs}]
 {charges}# defects:
 #   vacancies: {{count: 1, on: {last_label}}}   # on: a sublattice label ({labels}) or an element
 {compound_defects}#   substitutions:
@@ -103,7 +104,12 @@ def _compound_template(lattice: str) -> str:
                                  parameters=parameters, charges=charges,
                                  first_label=labels[0], last_label=labels[-1],
                                  labels=", ".join(labels), dopant=dopant,
-                                 compound_defects=compound_defects, interstitial=interstitial)
+                                 compound_defects=compound_defects, interstitial=interstitial,
+                                 outputs=_OUTPUTS)
+
+
+#: Every output format, from the registry.
+_OUTPUTS = ", ".join(FORMATS)
 
 
 def template_for(lattice: str) -> str:
@@ -119,4 +125,5 @@ def template_for(lattice: str) -> str:
     a = reference_states[atomic_numbers[element]]["a"]
     return _TEXT.format(title=LATTICES[lattice].title, element=element,
                         element_lower=element.lower(), lattice=lattice,
-                        lattices=" | ".join(LATTICES), a=a, site=_EXAMPLE_SITE[lattice])
+                        lattices=" | ".join(LATTICES), a=a, site=_EXAMPLE_SITE[lattice],
+                        outputs=_OUTPUTS)

@@ -304,8 +304,9 @@ def test_format_is_sniffed_from_content(cli, written, tmp_path):
         nameless.write_bytes(written[("fe-bcc", f"ase-{fmt}")].read_bytes())
         result, report = inspect_json(cli, nameless)
         assert result.exit_code == 0, (fmt, result.output)
+        # our format keys (the writers' and the recipe's), not ASE's names
         assert report["lattice"] == "bcc" and report["format"] == {
-            "extxyz": "xyz"}.get(fmt, fmt)
+            "extxyz": "xyz", "vasp": "poscar"}.get(fmt, fmt)
 
 
 def test_plot_is_a_png(cli, written, tmp_path):

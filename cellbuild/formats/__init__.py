@@ -1,9 +1,14 @@
-"""Output formats: a registry of format key -> file extension and writer.
+"""The format registry: every structure file format, one module each.
 
-Each format lives in its own module exposing
-``write(structure, handle, title) -> None``, which streams bytes to a binary
-handle (in blocks, never the whole text in memory). Adding a format is one
-module, one entry in ``FORMATS`` and its round-trip test.
+A format module holds all that is known of its format: ``KEY`` (the recipe's
+``outputs`` key and the name ``inspect`` reports), ``EXTENSION``, ``TITLE``,
+``DESCRIPTION``, ``BYTES_PER_ATOM`` (size estimate), ``ASE_FORMAT``,
+``SNIFF_ORDER``, ``NAME_HINT``, ``write(structure, handle, title)`` (streams bytes to a binary
+handle, in blocks), ``read(path, types, fast)`` (into a ``ReadResult``),
+``named(name, suffix)`` and ``sniff(lines)`` (telling a file's format from its
+name or first lines). Everything else (recipe validation, plan estimates,
+batch and verify file names, ``inspect``) asks :data:`FORMATS`. Adding a
+format is one module, its name in :data:`MODULES`, and its round-trip test.
 """
 from __future__ import annotations
 
@@ -11,33 +16,71 @@ import importlib
 import os
 from dataclasses import dataclass
 from pathlib import Path
+from types import ModuleType
 
 from ..fileio import HashingWriter, StagedFiles, atomic_writer
 from ..structure import Structure
 
+#: The format modules, in the order recipes list their outputs by default.
+MODULES = ("lammps", "cif", "xyz", "poscar")
+
 
 @dataclass(frozen=True)
 class Format:
-    """One output format: recipe key, file extension, writer module, description."""
+    """One format, read from its module (see the module docstring)."""
 
     key: str
     extension: str
-    module: str
+    title: str
     description: str
+    bytes_per_atom: int
+    ase_format: str
+    sniff_order: int
+    name_hint: str
+    module: ModuleType
+
+    @classmethod
+    def of(cls, module: ModuleType) -> "Format":
+        return cls(module.KEY, module.EXTENSION, module.TITLE, module.DESCRIPTION,
+                   module.BYTES_PER_ATOM, module.ASE_FORMAT, module.SNIFF_ORDER,
+                   module.NAME_HINT, module)
 
     def writer(self):
-        return importlib.import_module(f"{__name__}.{self.module}").write
+        return self.module.write
+
+    def reader(self):
+        return self.module.read
+
+    def named(self, path: Path) -> bool:
+        return self.module.named(path.name.lower(), path.suffix.lower())
+
+    def sniff(self, lines: list[str]) -> bool:
+        return self.module.sniff(lines)
 
 
 FORMATS: dict[str, Format] = {
-    f.key: f
-    for f in (
-        Format("lammps-data", ".lmp", "lammps", "LAMMPS data file, atom_style atomic, metal units"),
-        Format("cif", ".cif", "cif", "CIF 1.1, space group P 1, fractional coordinates"),
-        Format("xyz", ".xyz", "xyz", "extended XYZ with Lattice and pbc"),
-        Format("poscar", ".vasp", "poscar", "POSCAR, VASP 5 with species line, direct coordinates"),
-    )
+    f.key: f for f in (Format.of(importlib.import_module(f"{__name__}.{m}")) for m in MODULES)
 }
+
+#: Extensions of every file a format writes.
+EXTENSIONS: tuple[str, ...] = tuple(f.extension for f in FORMATS.values())
+
+
+def format_named(path: Path) -> Format | None:
+    """The format a file's name says, or None."""
+    return next((f for f in FORMATS.values() if f.named(path)), None)
+
+
+def format_sniffed(lines: list[str]) -> Format | None:
+    """The format a file's first lines (stripped) look like, or None."""
+    return next((f for f in sorted(FORMATS.values(), key=lambda f: f.sniff_order)
+                 if f.sniff(lines)), None)
+
+
+def title_of(name: str) -> str:
+    """The format's name in messages, from a key or ASE's name for it."""
+    found = FORMATS.get(name) or next((f for f in FORMATS.values() if f.ase_format == name), None)
+    return found.title if found else name
 
 
 @dataclass(frozen=True)

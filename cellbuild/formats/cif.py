@@ -130,3 +130,40 @@ def _header(structure: Structure, title: str) -> str:
         "'x, y, z'",
         "",
     ]) + "\n"
+
+
+# ----------------------------------------------------------------------------- registry entry
+# What the format registry (:mod:`cellbuild.formats`) knows of this format.
+
+#: Recipe ``outputs`` key, and the format name ``inspect`` reports.
+KEY = "cif"
+#: Extension of the files written.
+EXTENSION = ".cif"
+#: The format's name in messages.
+TITLE = "CIF"
+DESCRIPTION = "CIF 1.1, space group P 1, fractional coordinates"
+#: File-size estimate (bytes per atom) for ``plan`` and the disk-space check.
+BYTES_PER_ATOM = 60
+#: ASE's name for the format (its reader reads what this module writes).
+ASE_FORMAT = "cif"
+#: How files of this format are named, for messages.
+NAME_HINT = "*.cif"
+#: Place among the formats when one is told from a file's first lines.
+SNIFF_ORDER = 1
+
+
+def named(name: str, suffix: str) -> bool:
+    """Whether a file called ``name`` (lower case; ``suffix`` its extension) is in this format."""
+    return suffix == ".cif"
+
+
+def sniff(lines: list[str]) -> bool:
+    """Whether the first lines of a file (stripped) look like this format."""
+    return any(s.startswith("data_") or s.startswith("_cell_length_a") for s in lines)
+
+
+def read(path, types, fast):
+    """Read a file of this format into a ``ReadResult`` (the readers' machinery)."""
+    from ..readers import read_cif
+
+    return read_cif(path, types, fast)

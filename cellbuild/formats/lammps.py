@@ -35,6 +35,8 @@ positions are wrapped into that box.
 """
 from __future__ import annotations
 
+import re
+
 import math
 
 import numpy as np
@@ -190,3 +192,40 @@ def _mass(symbol: str) -> float:
     if symbol not in atomic_numbers:
         raise ValueError(f"{symbol!r} is not an element symbol; cannot give its mass")
     return float(atomic_masses[atomic_numbers[symbol]])
+
+
+# ----------------------------------------------------------------------------- registry entry
+# What the format registry (:mod:`cellbuild.formats`) knows of this format.
+
+#: Recipe ``outputs`` key, and the format name ``inspect`` reports.
+KEY = "lammps-data"
+#: Extension of the files written.
+EXTENSION = ".lmp"
+#: The format's name in messages.
+TITLE = "LAMMPS data"
+DESCRIPTION = "LAMMPS data file, metal units, atom_style atomic (charge with charges)"
+#: File-size estimate (bytes per atom) for ``plan`` and the disk-space check.
+BYTES_PER_ATOM = 70
+#: ASE's name for the format (its reader reads what this module writes).
+ASE_FORMAT = "lammps-data"
+#: How files of this format are named, for messages.
+NAME_HINT = "*.lmp / *.data"
+#: Place among the formats when one is told from a file's first lines.
+SNIFF_ORDER = 3
+
+
+def named(name: str, suffix: str) -> bool:
+    """Whether a file called ``name`` (lower case; ``suffix`` its extension) is in this format."""
+    return suffix in (".lmp", ".data", ".lammps") or "data." in name
+
+
+def sniff(lines: list[str]) -> bool:
+    """Whether the first lines of a file (stripped) look like this format."""
+    return any(re.fullmatch(r"\d+\s+atoms", s.split("#")[0].strip()) for s in lines)
+
+
+def read(path, types, fast):
+    """Read a file of this format into a ``ReadResult`` (the readers' machinery)."""
+    from ..readers import read_lammps
+
+    return read_lammps(path, types, fast)

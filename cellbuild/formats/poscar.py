@@ -65,3 +65,52 @@ def _header(structure: Structure, title: str) -> str:
         " ".join(str(n) for n in composition.values()),
         "Direct",
     ]) + "\n"
+
+
+# ----------------------------------------------------------------------------- registry entry
+# What the format registry (:mod:`cellbuild.formats`) knows of this format.
+
+#: Recipe ``outputs`` key, and the format name ``inspect`` reports.
+KEY = "poscar"
+#: Extension of the files written.
+EXTENSION = ".vasp"
+#: The format's name in messages.
+TITLE = "POSCAR"
+DESCRIPTION = "POSCAR, VASP 5 with species line, direct coordinates"
+#: File-size estimate (bytes per atom) for ``plan`` and the disk-space check.
+BYTES_PER_ATOM = 48
+#: ASE's name for the format (its reader reads what this module writes).
+ASE_FORMAT = "vasp"
+#: How files of this format are named, for messages.
+NAME_HINT = "POSCAR / *.vasp"
+#: Place among the formats when one is told from a file's first lines.
+SNIFF_ORDER = 4
+
+
+def named(name: str, suffix: str) -> bool:
+    """Whether a file called ``name`` (lower case; ``suffix`` its extension) is in this format."""
+    return suffix in (".vasp", ".poscar") or name.startswith(("poscar", "contcar"))
+
+
+def sniff(lines: list[str]) -> bool:
+    """Whether the first lines of a file (stripped) look like this format."""
+    return len(lines) > 5 and _floats(lines[1], 1) and all(_floats(s, 3) for s in lines[2:5])
+
+
+def read(path, types, fast):
+    """Read a file of this format into a ``ReadResult`` (the readers' machinery)."""
+    from ..readers import read_poscar
+
+    return read_poscar(path, types, fast)
+
+
+def _floats(text: str, n: int) -> bool:
+    """True if ``text`` starts with at least ``n`` numbers."""
+    parts = text.split()
+    if len(parts) < n:
+        return False
+    try:
+        [float(x) for x in parts[:n]]
+    except ValueError:
+        return False
+    return True

@@ -13,6 +13,8 @@ name ASE reads as the atoms' initial charges.
 """
 from __future__ import annotations
 
+import re
+
 import numpy as np
 
 from ..structure import Structure
@@ -56,3 +58,40 @@ def _header(structure: Structure, title: str) -> str:
     comment = (f'Lattice="{lattice}" Properties={properties} pbc="T T T"'
                + (f' title="{name}"' if name else ""))
     return f"{structure.n_atoms}\n{comment}\n"
+
+
+# ----------------------------------------------------------------------------- registry entry
+# What the format registry (:mod:`cellbuild.formats`) knows of this format.
+
+#: Recipe ``outputs`` key, and the format name ``inspect`` reports.
+KEY = "xyz"
+#: Extension of the files written.
+EXTENSION = ".xyz"
+#: The format's name in messages.
+TITLE = "extended XYZ"
+DESCRIPTION = "extended XYZ with Lattice and pbc"
+#: File-size estimate (bytes per atom) for ``plan`` and the disk-space check.
+BYTES_PER_ATOM = 60
+#: ASE's name for the format (its reader reads what this module writes).
+ASE_FORMAT = "extxyz"
+#: How files of this format are named, for messages.
+NAME_HINT = "*.xyz"
+#: Place among the formats when one is told from a file's first lines.
+SNIFF_ORDER = 2
+
+
+def named(name: str, suffix: str) -> bool:
+    """Whether a file called ``name`` (lower case; ``suffix`` its extension) is in this format."""
+    return suffix in (".xyz", ".extxyz")
+
+
+def sniff(lines: list[str]) -> bool:
+    """Whether the first lines of a file (stripped) look like this format."""
+    return bool(lines) and re.fullmatch(r"\d+", lines[0]) is not None
+
+
+def read(path, types, fast):
+    """Read a file of this format into a ``ReadResult`` (the readers' machinery)."""
+    from ..readers import read_xyz
+
+    return read_xyz(path, types, fast)
