@@ -22,7 +22,7 @@ from .build import Plan, build_perfect, check_disk_space, resolve, size_key, siz
 from .defects import Placement, apply, place_defects
 from .errors import InputError
 from .fileio import StagedFiles
-from .formats import WrittenFile, output_path, write_structure
+from .formats import WriteOptions, WrittenFile, output_path, write_structure
 from .neighbours import PairLimitError
 from .recipe import Recipe, load_recipe
 from .structure import Structure
@@ -144,13 +144,14 @@ def make(recipe: Recipe, out_dir: str | os.PathLike, *, force: bool = False,
     report_path = Path(out_dir) / f"{recipe.name}.report.json"
     # all files appear together or none do; without force, every name is claimed
     # exclusively, so a second run racing for the same names refuses instead of replacing
+    options = WriteOptions(recipe.kpoints, recipe.espresso)
     with StagedFiles(replace=force, root=out_dir) as staged:
         outputs = {}
         for key in recipe.outputs:
             note(key)
             outputs[key] = write_structure(built.structure, key,
                                            output_path(out_dir, recipe.name, key),
-                                           title=recipe.name, staged=staged)
+                                           title=recipe.name, staged=staged, options=options)
         if built.placements:
             staged.write_bytes(Path(out_dir) / f"{recipe.name}.defects.json",
                                _json_bytes(defect_sites(built), indent=None))

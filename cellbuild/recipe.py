@@ -28,7 +28,8 @@ from .recipe_defects import (Amount, Antisite, Arrangement, Defects, Interstitia
                              Substitution,
                              Vacancies)
 from .recipe_lattices import interstitial_sites, sites_hint
-from .formats import FORMATS
+from .formats import DEFAULT_KEYS, FORMATS
+from .recipe_outputs import Espresso, Kpoints
 from .yamlread import load_yaml, parse_yaml
 
 
@@ -38,7 +39,7 @@ __all__ = ["Amount", "Antisite", "Checks", "Crystal", "Defects", "Interstitial",
 #: Output format keys, from the format registry.
 FORMAT_KEYS = tuple(FORMATS)
 NAME_PATTERN = re.compile(r"^[A-Za-z0-9_.-]{1,200}$")
-DEFAULT_OUTPUTS = FORMAT_KEYS
+DEFAULT_OUTPUTS = DEFAULT_KEYS
 
 Lines = Mapping[str, int]
 
@@ -129,6 +130,8 @@ class Recipe:
     #: arrangement (``arrangement.structures``) or a distinct configuration
     #: (``placement: distinct``); set by :mod:`cellbuild.variants`, not a YAML key
     variant: int | None = None
+    kpoints: Kpoints | None = None
+    espresso: Espresso | None = None
 
     def __post_init__(self) -> None:
         if self.variant is not None:
@@ -173,6 +176,16 @@ class Recipe:
                        "list every element the recipe uses")
         if self.charges is not None:
             _set(self, "charges", _charges(self.charges, needed))
+        for key, cls in (("kpoints", Kpoints), ("espresso", Espresso)):
+            item = getattr(self, key)
+            if item is not None and not isinstance(item, cls):
+                v.fail(key, item, f"must be a {cls.__name__}, not {v.kind(item)}")
+        if "kpoints" in self.outputs and self.kpoints is None:
+            v.fail("outputs", list(self.outputs), "lists kpoints without a mesh spacing",
+                   "give kpoints: {spacing: 0.25} (1/Angstrom)")
+        if "espresso-in" in self.outputs and (self.espresso is None or self.espresso.ecutwfc is None):
+            v.fail("espresso.ecutwfc", None, "is required for the espresso-in output",
+                   "give the wavefunction cutoff (Ry) your pseudopotentials recommend")
 
     def _used_elements(self) -> tuple[str, ...]:
         """Host elements, substituents in recipe order, then interstitials."""
@@ -314,7 +327,7 @@ class _Checker:
 
 
 TOP_KEYS = ("name", "crystal", "size", "seed", "outputs", "defects", "types", "checks",
-            "charges", "surface", "grain_boundary", "sweep")
+            "charges", "surface", "grain_boundary", "sweep", "kpoints", "espresso")
 CRYSTAL_KEYS = ("element", "lattice", "a", "density", "radius", "species", "c", "c_over_a", "u",
                 "cif", "axes")
 SIZE_KEYS = ("repeat", "atoms", "min_length", "matrix")
@@ -329,6 +342,8 @@ SCHOTTKY_KEYS = ("count",)
 CHECK_KEYS = ("min_distance", "physical_spacing", "net_charge")
 SURFACE_KEYS = ("miller", "layers", "vacuum", "termination")
 BOUNDARY_KEYS = ("axis", "plane", "grains", "vacuum", "min_distance")
+KPOINTS_KEYS = ("spacing", "centring")
+ESPRESSO_KEYS = ("ecutwfc", "pseudopotentials", "pattern", "positions")
 
 
 def parse_recipe(data: Any, lines: Lines | None = None, file: str | None = None, *,
@@ -379,6 +394,19 @@ def parse_recipe(data: Any, lines: Lines | None = None, file: str | None = None,
                 c.fail_missing(f"grain_boundary.{need}", "is required",
                                "for example grain_boundary: {axis: [0, 0, 1], plane: [3, 1, 0]}")
         fields["grain_boundary"] = c.make(GrainBoundary, "", **gb)
+    if "kpoints" in data:
+        k = c.mapping(data["kpoints"], "kpoints")
+        c.known_keys(k, KPOINTS_KEYS, "kpoints")
+        if "spacing" not in k:
+            c.fail_missing("kpoints.spacing", "is required", "for example kpoints: {spacing: 0.25}")
+        fields["kpoints"] = c.make(Kpoints, "kpoints", **k)
+    if "espresso" in data:
+        e = c.mapping(data["espresso"], "espresso")
+        c.known_keys(e, ESPRESSO_KEYS, "espresso")
+        if "pseudopotentials" in e:
+            e = {**e, "pseudopotentials": tuple(c.mapping(e["pseudopotentials"],
+                                                          "espresso.pseudopotentials").items())}
+        fields["espresso"] = c.make(Espresso, "espresso", **e)
     return c.make(Recipe, "", name=name, crystal=crystal, size=size, defects=defects,
                   checks=checks, source=file, **fields)
 

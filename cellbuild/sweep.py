@@ -26,7 +26,7 @@ from typing import Any, Iterator, Mapping
 
 from .errors import InputError
 from .variants import variants_of
-from .recipe import (ANTISITE_KEYS, ARRANGEMENT_KEYS, SCHOTTKY_KEYS, CHECK_KEYS, CRYSTAL_KEYS, DEFECT_KEYS, INTERSTITIAL_KEYS, NAME_PATTERN,
+from .recipe import (ESPRESSO_KEYS, KPOINTS_KEYS, ANTISITE_KEYS, ARRANGEMENT_KEYS, SCHOTTKY_KEYS, CHECK_KEYS, CRYSTAL_KEYS, DEFECT_KEYS, INTERSTITIAL_KEYS, NAME_PATTERN,
                      SIZE_KEYS, SUBSTITUTION_KEYS, TOP_KEYS, VACANCY_KEYS, Recipe, load_yaml,
                      parse_recipe)
 
@@ -134,6 +134,9 @@ def _schema() -> dict:
         "crystal": leaf(CRYSTAL_KEYS),
         "size": leaf(SIZE_KEYS),
         "checks": leaf(CHECK_KEYS),
+        "kpoints": leaf(KPOINTS_KEYS),
+        "espresso": {**leaf(k for k in ESPRESSO_KEYS if k != "pseudopotentials"),
+                     "pseudopotentials": None},
         "defects": {
             **leaf(DEFECT_KEYS),
             "vacancies": leaf(VACANCY_KEYS),

@@ -1,7 +1,7 @@
 """Commented starter recipes, one per lattice, that `make` accepts as they are."""
 from __future__ import annotations
 
-from .formats import FORMATS
+from .formats import DEFAULT_KEYS
 from .errors import InputError
 from .lattices import LATTICES
 from .prototypes import PROTOTYPES
@@ -108,8 +108,8 @@ def _compound_template(lattice: str) -> str:
                                  outputs=_OUTPUTS)
 
 
-#: Every output format, from the registry.
-_OUTPUTS = ", ".join(FORMATS)
+#: The formats a recipe writes by default, from the registry.
+_OUTPUTS = ", ".join(DEFAULT_KEYS)
 
 
 def template_for(lattice: str) -> str:

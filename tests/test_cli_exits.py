@@ -81,7 +81,7 @@ def test_usage_errors_are_one_sentence_exit_2(tmp_path, capsys, argv, words):
 def test_disk_full_names_the_output_folder(tmp_path, capsys, monkeypatch):
     from cellbuild.formats import xyz
 
-    def disk_full(structure, handle, title):
+    def disk_full(structure, handle, title, options=None):
         raise OSError(errno.ENOSPC, "No space left on device")  # no file name attached
 
     monkeypatch.setattr(xyz, "write", disk_full)

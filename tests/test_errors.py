@@ -200,7 +200,7 @@ def test_failed_write_keeps_previous_files_and_leaves_no_temporaries(cli, tmp_pa
     assert cli("make", path, "--out", out).exit_code == 0
     before = _snapshot(out)
 
-    def disk_full(structure, handle, title):
+    def disk_full(structure, handle, title, options=None):
         handle.write(b"12 partial bytes")
         raise OSError(errno.ENOSPC, "No space left on device")
 
@@ -223,7 +223,7 @@ def test_interrupt_during_write_leaves_previous_files(tmp_path, monkeypatch):
     make(recipe, out)
     before = _snapshot(out)
 
-    def interrupted(structure, handle, title):
+    def interrupted(structure, handle, title, options=None):
         handle.write(b"LAMMPS data file, half")
         raise KeyboardInterrupt
 

@@ -400,7 +400,7 @@ def test_write_structure_reports_the_file_hash(tmp_path):
         assert data == write_bytes(s, key, "Si")
 
 
-def _failing_writer(structure, handle, title):
+def _failing_writer(structure, handle, title, options=None):
     handle.write(b"half a file\n" * 1000)
     raise RuntimeError("writer failed midway")
 

@@ -3,7 +3,7 @@
 A format module holds all that is known of its format: ``KEY`` (the recipe's
 ``outputs`` key and the name ``inspect`` reports), ``EXTENSION``, ``TITLE``,
 ``DESCRIPTION``, ``BYTES_PER_ATOM`` (size estimate), ``ASE_FORMAT``,
-``SNIFF_ORDER``, ``NAME_HINT``, ``write(structure, handle, title)`` (streams bytes to a binary
+``SNIFF_ORDER``, ``NAME_HINT``, ``DEFAULT`` and ``STRUCTURE`` (optional, default true), ``write(structure, handle, title, options)`` (streams bytes to a binary
 handle, in blocks), ``read(path, types, fast)`` (into a ``ReadResult``),
 ``named(name, suffix)`` and ``sniff(lines)`` (telling a file's format from its
 name or first lines). Everything else (recipe validation, plan estimates,
@@ -22,7 +22,7 @@ from ..fileio import HashingWriter, StagedFiles, atomic_writer
 from ..structure import Structure
 
 #: The format modules, in the order recipes list their outputs by default.
-MODULES = ("lammps", "cif", "xyz", "poscar")
+MODULES = ("lammps", "cif", "xyz", "poscar", "espresso", "kpoints")
 
 
 @dataclass(frozen=True)
@@ -37,13 +37,16 @@ class Format:
     ase_format: str
     sniff_order: int
     name_hint: str
+    default: bool       # written when a recipe does not list its outputs
+    structure: bool     # a structure file that ``inspect`` reads
     module: ModuleType
 
     @classmethod
     def of(cls, module: ModuleType) -> "Format":
         return cls(module.KEY, module.EXTENSION, module.TITLE, module.DESCRIPTION,
                    module.BYTES_PER_ATOM, module.ASE_FORMAT, module.SNIFF_ORDER,
-                   module.NAME_HINT, module)
+                   module.NAME_HINT, getattr(module, "DEFAULT", True),
+                   getattr(module, "STRUCTURE", True), module)
 
     def writer(self):
         return self.module.write
@@ -62,19 +65,22 @@ FORMATS: dict[str, Format] = {
     f.key: f for f in (Format.of(importlib.import_module(f"{__name__}.{m}")) for m in MODULES)
 }
 
+#: The formats a recipe without ``outputs`` writes.
+DEFAULT_KEYS: tuple[str, ...] = tuple(k for k, f in FORMATS.items() if f.default)
+
 #: Extensions of every file a format writes.
 EXTENSIONS: tuple[str, ...] = tuple(f.extension for f in FORMATS.values())
 
 
 def format_named(path: Path) -> Format | None:
     """The format a file's name says, or None."""
-    return next((f for f in FORMATS.values() if f.named(path)), None)
+    return next((f for f in FORMATS.values() if f.structure and f.named(path)), None)
 
 
 def format_sniffed(lines: list[str]) -> Format | None:
     """The format a file's first lines (stripped) look like, or None."""
     return next((f for f in sorted(FORMATS.values(), key=lambda f: f.sniff_order)
-                 if f.sniff(lines)), None)
+                 if f.structure and f.sniff(lines)), None)
 
 
 def title_of(name: str) -> str:
@@ -97,8 +103,19 @@ def output_path(out_dir: str | os.PathLike, name: str, key: str) -> Path:
     return Path(out_dir) / f"{name}{FORMATS[key].extension}"
 
 
+@dataclass(frozen=True)
+class WriteOptions:
+    """Settings writers may take from the recipe: the k-point mesh
+    (:class:`cellbuild.recipe_outputs.Kpoints`) and the pw.x input's
+    (:class:`cellbuild.recipe_outputs.Espresso`); None where not given."""
+
+    kpoints: object = None
+    espresso: object = None
+
+
 def write_structure(structure: Structure, key: str, path: str | os.PathLike,
-                    title: str, staged: StagedFiles | None = None) -> WrittenFile:
+                    title: str, staged: StagedFiles | None = None,
+                    options: WriteOptions | None = None) -> WrittenFile:
     """Write ``structure`` in format ``key`` to ``path`` atomically; return its hash.
 
     With ``staged``, the file appears only when the caller commits the group.
@@ -107,5 +124,5 @@ def write_structure(structure: Structure, key: str, path: str | os.PathLike,
     opener = staged.writer if staged is not None else atomic_writer
     with opener(path) as handle:
         hashing = HashingWriter(handle)
-        write(structure, hashing, title)
+        write(structure, hashing, title, options)
     return WrittenFile(Path(path), hashing.sha256, hashing.bytes)

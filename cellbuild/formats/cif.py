@@ -43,7 +43,7 @@ CELL_DECIMALS = 12
 ANGLE_DECIMALS = 10
 
 
-def write(structure: Structure, handle, title: str) -> None:
+def write(structure: Structure, handle, title: str, options=None) -> None:
     """Write ``structure`` as a CIF 1.1 file to binary ``handle``."""
     _text.check_codes(structure.species, len(structure.symbols))
     handle.write(_header(structure, title).encode("ascii"))

@@ -55,7 +55,7 @@ CHARGE_DECIMALS = 10
 _FACE = 2.0 ** -50
 
 
-def write(structure: Structure, handle, title: str) -> None:
+def write(structure: Structure, handle, title: str, options=None) -> None:
     """Write ``structure`` as a LAMMPS data file to binary ``handle``."""
     _text.check_codes(structure.species, len(structure.symbols))
     cell = right_handed(structure.cell)

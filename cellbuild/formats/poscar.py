@@ -28,7 +28,7 @@ FRACTION_DECIMALS = 12
 CELL_DECIMALS = 12
 
 
-def write(structure: Structure, handle, title: str) -> None:
+def write(structure: Structure, handle, title: str, options=None) -> None:
     """Write ``structure`` as a VASP 5 POSCAR to binary ``handle``."""
     _text.check_codes(structure.species, len(structure.symbols))
     handle.write(_header(structure, title).encode("ascii"))

@@ -24,7 +24,7 @@ from . import _text
 DECIMALS = 10
 
 
-def write(structure: Structure, handle, title: str) -> None:
+def write(structure: Structure, handle, title: str, options=None) -> None:
     """Write ``structure`` as extended XYZ to binary ``handle``."""
     _text.check_codes(structure.species, len(structure.symbols))
     handle.write(_header(structure, title).encode("ascii"))
