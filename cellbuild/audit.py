@@ -77,18 +77,19 @@ def expected_coordination(structure: Structure, crystal: Crystal,
 
 
 def counts_within(structure: Structure, crystal: Crystal, *, workers: int = 2,
-                  sites=None) -> np.ndarray:
+                  sites=None, scale: float = 1.0) -> np.ndarray:
     """Neighbours of each atom closer than its grid site's audit cutoff
     (:attr:`Crystal.grid_cutoff`, Angstrom), from coordinates; (N,) int32.
 
     One neighbour count per distinct cutoff (one for an element, at most one per
-    sublattice for a compound), each atom taking the count made with its cutoff.
+    sublattice for a compound), each atom taking the count made with its cutoff;
+    ``scale`` multiplies every cutoff (a strained cell).
     """
-    values = np.unique(crystal.grid_cutoff)
+    values = np.unique(crystal.grid_cutoff) * scale
     counted = neighbours.coordination_counts(structure.cell, structure.positions,
                                              float(values[-1]), workers=workers, sites=sites)
     if len(values) > 1:
-        which = np.searchsorted(values, crystal.grid_cutoff)[structure.site % crystal.n_grid]
+        which = np.searchsorted(values, crystal.grid_cutoff * scale)[structure.site % crystal.n_grid]
         for k, value in enumerate(values[:-1]):
             counts = neighbours.coordination_counts(structure.cell, structure.positions,
                                                     float(value), workers=workers, sites=sites)

@@ -20,6 +20,7 @@ from . import __version__
 from .audit import Audit, audit
 from .build import Plan, build_perfect, check_disk_space, resolve, size_key, size_value
 from .defects import Placement, apply, place_defects
+from .distortion import distort, distorted, with_distortion
 from .errors import InputError
 from .fileio import StagedFiles
 from .formats import WriteOptions, WrittenFile, output_path, write_structure
@@ -39,6 +40,8 @@ class Built:
     placements: list[Placement]
     arrangement: dict | None = None  # the arrangement search's facts, if the recipe asks one
     configuration: dict | None = None  # facts of a distinct configuration (placement: distinct)
+    ideal: Structure | None = None  # before strain and displacement (None without them)
+    distortion: dict | None = None  # the strain and displacement facts
 
 
 @dataclass(frozen=True)
@@ -79,8 +82,12 @@ def build(recipe: Recipe, *, strict: bool = False, progress: Progress | None = N
 
         configuration = configuration_facts(plan)
     # one atom order for every format, so defect atom ids hold in each file
-    return Built(plan, structure.grouped_by_species().with_charges(recipe.charge_of()),
-                 placements, facts, configuration)
+    structure = structure.grouped_by_species().with_charges(recipe.charge_of())
+    ideal = distortion = None
+    if distorted(recipe):
+        ideal = structure
+        structure, distortion = distort(recipe, ideal)
+    return Built(plan, structure, placements, facts, configuration, ideal, distortion)
 
 
 def planned_paths(recipe: Recipe, out_dir: str | os.PathLike) -> list[Path]:
@@ -134,7 +141,11 @@ def make(recipe: Recipe, out_dir: str | os.PathLike, *, force: bool = False,
     ensure_output_dir(out_dir)
     note("audit")
     try:
-        result_audit = audit(built.plan, built.structure, built.placements, workers=workers)
+        result_audit = audit(built.plan, built.ideal or built.structure, built.placements,
+                             workers=workers)
+        if built.ideal is not None:
+            result_audit = with_distortion(result_audit, built.plan, built.ideal,
+                                           built.structure, workers)
     except PairLimitError as exc:  # a size limit of the checks, found before any file is written
         recipe = built.plan.recipe
         raise InputError(f"gives {built.structure.n_atoms:,} atoms, too many for the audit's "
@@ -214,6 +225,8 @@ def make_report(built: Built, result: Audit, outputs: dict[str, WrittenFile],
         "short_range_order": v["short_range_order"],
         "arrangement": built.arrangement,
         "configuration": built.configuration,
+        "strain": (built.distortion or {}).get("strain"),
+        "displacement": (built.distortion or {}).get("displacement"),
         "defects": [
             {"kind": p.kind, "element": p.element, "on": p.on, "key": p.key,
              "asked": p.asked, "placed": p.count}
@@ -274,6 +287,8 @@ def defect_sites(built: Built) -> dict:
             entry["atom_ids"] = (idx + 1).tolist()
         if p.kind in ("vacancy", "interstitial"):
             pos = site_positions(plan.crystal, plan.repeat, p.site_ids)
+            if plan.recipe.strain is not None:  # the sites move with the strained cell
+                pos = pos @ plan.recipe.strain.matrix().T
             entry["positions"] = np.round(pos, 10).tolist()
         entries.append(entry)
     return {"name": plan.recipe.name, "seed": plan.recipe.seed,

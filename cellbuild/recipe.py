@@ -23,7 +23,7 @@ from .errors import InputError
 from .lattices import LATTICES
 from .prototypes import PROTOTYPES
 from .recipe_crystal import Crystal
-from .recipe_geometry import GrainBoundary, Surface, supercell_matrix
+from .recipe_geometry import Displace, GrainBoundary, Strain, Surface, supercell_matrix
 from .recipe_defects import (Amount, Antisite, Arrangement, Defects, Interstitial, Schottky,
                              Substitution,
                              Vacancies)
@@ -132,6 +132,8 @@ class Recipe:
     variant: int | None = None
     kpoints: Kpoints | None = None
     espresso: Espresso | None = None
+    displace: Displace | None = None
+    strain: Strain | None = None
 
     def __post_init__(self) -> None:
         if self.variant is not None:
@@ -176,10 +178,16 @@ class Recipe:
                        "list every element the recipe uses")
         if self.charges is not None:
             _set(self, "charges", _charges(self.charges, needed))
-        for key, cls in (("kpoints", Kpoints), ("espresso", Espresso)):
+        for key, cls in (("kpoints", Kpoints), ("espresso", Espresso), ("displace", Displace),
+                         ("strain", Strain)):
             item = getattr(self, key)
             if item is not None and not isinstance(item, cls):
                 v.fail(key, item, f"must be a {cls.__name__}, not {v.kind(item)}")
+        if self.displace is not None and isinstance(self.displace.debye_temperature, tuple):
+            missing = [e for e in needed if self.displace.theta_of(e) is None]
+            if missing:
+                v.fail("displace.debye_temperature", dict(self.displace.debye_temperature),
+                       f"gives none for {', '.join(missing)}", "give every element a value")
         if "kpoints" in self.outputs and self.kpoints is None:
             v.fail("outputs", list(self.outputs), "lists kpoints without a mesh spacing",
                    "give kpoints: {spacing: 0.25} (1/Angstrom)")
@@ -327,7 +335,8 @@ class _Checker:
 
 
 TOP_KEYS = ("name", "crystal", "size", "seed", "outputs", "defects", "types", "checks",
-            "charges", "surface", "grain_boundary", "sweep", "kpoints", "espresso")
+            "charges", "surface", "grain_boundary", "sweep", "kpoints", "espresso",
+            "displace", "strain")
 CRYSTAL_KEYS = ("element", "lattice", "a", "density", "radius", "species", "c", "c_over_a", "u",
                 "cif", "axes")
 SIZE_KEYS = ("repeat", "atoms", "min_length", "matrix")
@@ -344,6 +353,8 @@ SURFACE_KEYS = ("miller", "layers", "vacuum", "termination")
 BOUNDARY_KEYS = ("axis", "plane", "grains", "vacuum", "min_distance")
 KPOINTS_KEYS = ("spacing", "centring")
 ESPRESSO_KEYS = ("ecutwfc", "pseudopotentials", "pattern", "positions")
+DISPLACE_KEYS = ("rattle", "temperature", "debye_temperature")
+STRAIN_KEYS = ("volumetric", "tensor")
 
 
 def parse_recipe(data: Any, lines: Lines | None = None, file: str | None = None, *,
@@ -407,6 +418,16 @@ def parse_recipe(data: Any, lines: Lines | None = None, file: str | None = None,
             e = {**e, "pseudopotentials": tuple(c.mapping(e["pseudopotentials"],
                                                           "espresso.pseudopotentials").items())}
         fields["espresso"] = c.make(Espresso, "espresso", **e)
+    if "displace" in data:
+        d = c.mapping(data["displace"], "displace")
+        c.known_keys(d, DISPLACE_KEYS, "displace")
+        if isinstance(d.get("debye_temperature"), dict):
+            d = {**d, "debye_temperature": tuple(d["debye_temperature"].items())}
+        fields["displace"] = c.make(Displace, "displace", **d)
+    if "strain" in data:
+        st = c.mapping(data["strain"], "strain")
+        c.known_keys(st, STRAIN_KEYS, "strain")
+        fields["strain"] = c.make(Strain, "strain", **st)
     return c.make(Recipe, "", name=name, crystal=crystal, size=size, defects=defects,
                   checks=checks, source=file, **fields)
 

@@ -4,6 +4,8 @@ from __future__ import annotations
 
 from dataclasses import dataclass
 
+import numpy as np
+
 from . import recipe_values as v
 
 _set = v.store
@@ -69,3 +71,78 @@ class GrainBoundary:
             v.fail("grain_boundary.vacuum", self.vacuum, "must be at least 0")
         if self.min_distance is not None:
             _set(self, "min_distance", v.number(self.min_distance, "grain_boundary.min_distance"))
+
+
+@dataclass(frozen=True)
+class Displace:
+    """Seeded displacements of every atom: ``rattle`` (Gaussian, standard deviation
+    per Cartesian component, Angstrom), or the Debye model's spread at
+    ``temperature`` (K) with ``debye_temperature`` (K; one value, or element ->
+    value as pairs)."""
+
+    rattle: float | None = None
+    temperature: float | None = None
+    debye_temperature: object = None
+
+    def __post_init__(self) -> None:
+        which = v.exclusive(self, ("rattle", "temperature"), "", required=True)
+        if which == "rattle":
+            v.store(self, "rattle", v.number(self.rattle, "rattle"))
+            if self.debye_temperature is not None:
+                v.fail("debye_temperature", self.debye_temperature, "goes with temperature",
+                       "give temperature and debye_temperature, or rattle alone")
+            return
+        v.store(self, "temperature", v.number(self.temperature, "temperature", positive=False))
+        if self.temperature < 0:
+            v.fail("temperature", self.temperature, "must be at least 0 K")
+        theta = self.debye_temperature
+        if theta is None:
+            v.fail("debye_temperature", None, "is required with temperature",
+                   "give the Debye temperature in K, one value or per element")
+        if isinstance(theta, (tuple, list, dict)):
+            pairs = dict(theta)
+            v.store(self, "debye_temperature", tuple(
+                (v.element(e, "debye_temperature"), v.number(t, f"debye_temperature.{e}"))
+                for e, t in pairs.items()))
+        else:
+            v.store(self, "debye_temperature", v.number(theta, "debye_temperature"))
+
+    def theta_of(self, element: str) -> float | None:
+        """The Debye temperature (K) of ``element``, or None if the recipe gives none."""
+        theta = self.debye_temperature
+        return dict(theta).get(element) if isinstance(theta, tuple) else theta
+
+
+@dataclass(frozen=True)
+class Strain:
+    """A homogeneous strain of cell and positions: ``volumetric`` (V/V0 - 1, applied
+    isotropically) or ``tensor`` (the symmetric small-strain tensor eps, 3 x 3,
+    deformation F = I + eps; not Voigt engineering shears)."""
+
+    volumetric: float | None = None
+    tensor: tuple | None = None
+
+    def __post_init__(self) -> None:
+        which = v.exclusive(self, ("volumetric", "tensor"), "", required=True)
+        if which == "volumetric":
+            v.store(self, "volumetric", v.number(self.volumetric, "volumetric", positive=False))
+        else:
+            rows = self.tensor
+            if not isinstance(rows, (list, tuple)) or len(rows) != 3 or any(
+                    not isinstance(r, (list, tuple)) or len(r) != 3 for r in rows):
+                v.fail("tensor", rows, "must be a 3 x 3 list of numbers")
+            v.store(self, "tensor", tuple(tuple(v.number(x, "tensor", positive=False) for x in r)
+                                          for r in rows))
+        from .displacements import strain_matrix
+
+        try:
+            strain_matrix(self.volumetric, None if self.tensor is None else np.array(self.tensor))
+        except ValueError as exc:
+            v.fail(which, self.volumetric if which == "volumetric" else [list(r) for r in self.tensor],
+                   f"is not a usable strain ({exc})")
+
+    def matrix(self) -> np.ndarray:
+        """The deformation gradient F (cell rows and positions map as x @ F.T)."""
+        from .displacements import strain_matrix
+
+        return strain_matrix(self.volumetric, None if self.tensor is None else np.array(self.tensor))
