@@ -37,12 +37,13 @@ from typing import Sequence
 from . import __version__
 from .errors import InputError
 from .formats import EXTENSIONS
+from .relaxation import GROUPS_EXTENSION
 from .outcomes import Outcome, sort_outcomes
 
 MANIFEST_NAME = "manifest.json"
 RECIPE_SUFFIXES = (".yaml", ".yml")
 #: Files cellbuild writes for a structure; `verify` reports others of these kinds as extra.
-OUTPUT_SUFFIXES = EXTENSIONS + (".report.json", ".defects.json")
+OUTPUT_SUFFIXES = EXTENSIONS + (".report.json", ".defects.json", GROUPS_EXTENSION)
 #: A manifest holds about 1 kB per structure: 200 MB is 200,000 structures.
 MAX_MANIFEST_BYTES = 200 * 2**20
 #: Seeds are below 2**64 (20 digits); nothing in a manifest needs more.

@@ -21,6 +21,7 @@ from .audit import Audit, audit
 from .build import Plan, build_perfect, check_disk_space, resolve, size_key, size_value
 from .defects import Placement, apply, place_defects
 from .distortion import distort, distorted, with_distortion
+from .relaxation import GROUPS_EXTENSION, groups_text
 from .errors import InputError
 from .fileio import StagedFiles
 from .formats import WriteOptions, WrittenFile, output_path, write_structure
@@ -42,6 +43,7 @@ class Built:
     configuration: dict | None = None  # facts of a distinct configuration (placement: distinct)
     ideal: Structure | None = None  # before strain and displacement (None without them)
     distortion: dict | None = None  # the strain and displacement facts
+    free: np.ndarray | None = None  # (N,) bool, atoms free to relax (``relax``), file order
 
 
 @dataclass(frozen=True)
@@ -83,11 +85,20 @@ def build(recipe: Recipe, *, strict: bool = False, progress: Progress | None = N
         configuration = configuration_facts(plan)
     # one atom order for every format, so defect atom ids hold in each file
     structure = structure.grouped_by_species().with_charges(recipe.charge_of())
-    ideal = distortion = None
+    ideal = distortion = free = None
     if distorted(recipe):
         ideal = structure
         structure, distortion = distort(recipe, ideal)
-    return Built(plan, structure, placements, facts, configuration, ideal, distortion)
+    if recipe.relax is not None:
+        from .relaxation import free_atoms
+
+        try:
+            free = free_atoms(plan, ideal or structure, placements, recipe.relax.within)
+        except PairLimitError as exc:
+            raise InputError(f"lists too many neighbours of the defects ({exc})",
+                             key="relax.within", value=recipe.relax.within,
+                             hint="give a smaller distance", file=recipe.source) from None
+    return Built(plan, structure, placements, facts, configuration, ideal, distortion, free)
 
 
 def planned_paths(recipe: Recipe, out_dir: str | os.PathLike) -> list[Path]:
@@ -96,7 +107,14 @@ def planned_paths(recipe: Recipe, out_dir: str | os.PathLike) -> list[Path]:
     paths.append(Path(out_dir) / f"{recipe.name}.report.json")
     if recipe.defects.any:
         paths.append(Path(out_dir) / f"{recipe.name}.defects.json")
+    if _writes_groups(recipe):
+        paths.append(Path(out_dir) / f"{recipe.name}{GROUPS_EXTENSION}")
     return paths
+
+
+def _writes_groups(recipe: Recipe) -> bool:
+    """Whether :func:`make` writes the LAMMPS group file (``relax`` and LAMMPS output)."""
+    return recipe.relax is not None and "lammps-data" in recipe.outputs
 
 
 def check_outputs_free(recipes: list[Recipe], out_dir: str | os.PathLike, force: bool) -> None:
@@ -155,7 +173,7 @@ def make(recipe: Recipe, out_dir: str | os.PathLike, *, force: bool = False,
     report_path = Path(out_dir) / f"{recipe.name}.report.json"
     # all files appear together or none do; without force, every name is claimed
     # exclusively, so a second run racing for the same names refuses instead of replacing
-    options = WriteOptions(recipe.kpoints, recipe.espresso)
+    options = WriteOptions(recipe.kpoints, recipe.espresso, built.free)
     with StagedFiles(replace=force, root=out_dir) as staged:
         outputs = {}
         for key in recipe.outputs:
@@ -163,6 +181,9 @@ def make(recipe: Recipe, out_dir: str | os.PathLike, *, force: bool = False,
             outputs[key] = write_structure(built.structure, key,
                                            output_path(out_dir, recipe.name, key),
                                            title=recipe.name, staged=staged, options=options)
+        if _writes_groups(recipe):
+            staged.write_bytes(Path(out_dir) / f"{recipe.name}{GROUPS_EXTENSION}",
+                               groups_text(built.free).encode("ascii"))
         if built.placements:
             staged.write_bytes(Path(out_dir) / f"{recipe.name}.defects.json",
                                _json_bytes(defect_sites(built), indent=None))
@@ -227,6 +248,10 @@ def make_report(built: Built, result: Audit, outputs: dict[str, WrittenFile],
         "configuration": built.configuration,
         "strain": (built.distortion or {}).get("strain"),
         "displacement": (built.distortion or {}).get("displacement"),
+        "relax": None if built.free is None else {
+            "within": recipe.relax.within, "free": int(built.free.sum()),
+            "fixed": int(built.free.size - built.free.sum()),
+            "lammps_groups": f"{recipe.name}{GROUPS_EXTENSION}" if _writes_groups(recipe) else None},
         "defects": [
             {"kind": p.kind, "element": p.element, "on": p.on, "key": p.key,
              "asked": p.asked, "placed": p.count}

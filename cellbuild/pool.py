@@ -80,6 +80,8 @@ def build_job(job: Job) -> Outcome:
     extra = {"report": result.report_path}
     if report.get("defect_sites"):
         extra["defects"] = Path(job.out_dir) / report["defect_sites"]
+    if (report.get("relax") or {}).get("lammps_groups"):
+        extra["lammps_groups"] = Path(job.out_dir) / report["relax"]["lammps_groups"]
     for key, path in extra.items():
         outputs[key] = {"path": prefix + path.name, "sha256": sha256_file(path),
                         "bytes": path.stat().st_size}

@@ -29,7 +29,7 @@ from .recipe_defects import (Amount, Antisite, Arrangement, Defects, Interstitia
                              Vacancies)
 from .recipe_lattices import interstitial_sites, sites_hint
 from .formats import DEFAULT_KEYS, FORMATS
-from .recipe_outputs import Espresso, Kpoints
+from .recipe_outputs import Espresso, Kpoints, Relax
 from .yamlread import load_yaml, parse_yaml
 
 
@@ -134,6 +134,7 @@ class Recipe:
     espresso: Espresso | None = None
     displace: Displace | None = None
     strain: Strain | None = None
+    relax: Relax | None = None
 
     def __post_init__(self) -> None:
         if self.variant is not None:
@@ -179,7 +180,7 @@ class Recipe:
         if self.charges is not None:
             _set(self, "charges", _charges(self.charges, needed))
         for key, cls in (("kpoints", Kpoints), ("espresso", Espresso), ("displace", Displace),
-                         ("strain", Strain)):
+                         ("strain", Strain), ("relax", Relax)):
             item = getattr(self, key)
             if item is not None and not isinstance(item, cls):
                 v.fail(key, item, f"must be a {cls.__name__}, not {v.kind(item)}")
@@ -188,6 +189,9 @@ class Recipe:
             if missing:
                 v.fail("displace.debye_temperature", dict(self.displace.debye_temperature),
                        f"gives none for {', '.join(missing)}", "give every element a value")
+        if self.relax is not None and not self.defects.any:
+            v.fail("relax", {"within": self.relax.within}, "has no defects to relax around",
+                   "give defects, or leave relax out")
         if "kpoints" in self.outputs and self.kpoints is None:
             v.fail("outputs", list(self.outputs), "lists kpoints without a mesh spacing",
                    "give kpoints: {spacing: 0.25} (1/Angstrom)")
@@ -336,7 +340,7 @@ class _Checker:
 
 TOP_KEYS = ("name", "crystal", "size", "seed", "outputs", "defects", "types", "checks",
             "charges", "surface", "grain_boundary", "sweep", "kpoints", "espresso",
-            "displace", "strain")
+            "displace", "strain", "relax")
 CRYSTAL_KEYS = ("element", "lattice", "a", "density", "radius", "species", "c", "c_over_a", "u",
                 "cif", "axes")
 SIZE_KEYS = ("repeat", "atoms", "min_length", "matrix")
@@ -355,6 +359,7 @@ KPOINTS_KEYS = ("spacing", "centring")
 ESPRESSO_KEYS = ("ecutwfc", "pseudopotentials", "pattern", "positions")
 DISPLACE_KEYS = ("rattle", "temperature", "debye_temperature")
 STRAIN_KEYS = ("volumetric", "tensor")
+RELAX_KEYS = ("within",)
 
 
 def parse_recipe(data: Any, lines: Lines | None = None, file: str | None = None, *,
@@ -428,6 +433,12 @@ def parse_recipe(data: Any, lines: Lines | None = None, file: str | None = None,
         st = c.mapping(data["strain"], "strain")
         c.known_keys(st, STRAIN_KEYS, "strain")
         fields["strain"] = c.make(Strain, "strain", **st)
+    if "relax" in data:
+        rx = c.mapping(data["relax"], "relax")
+        c.known_keys(rx, RELAX_KEYS, "relax")
+        if "within" not in rx:
+            c.fail_missing("relax.within", "is required", "for example relax: {within: 6.0}")
+        fields["relax"] = c.make(Relax, "relax", **rx)
     return c.make(Recipe, "", name=name, crystal=crystal, size=size, defects=defects,
                   checks=checks, source=file, **fields)
 

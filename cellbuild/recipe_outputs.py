@@ -78,3 +78,14 @@ def _file_name(value, key: str) -> str:
         v.fail(key, value, "is not a plain file name",
                "give a name without spaces, quotes, commas or slashes")
     return name
+
+
+@dataclass(frozen=True)
+class Relax:
+    """Which atoms a relaxation may move: those ``within`` (Angstrom, periodic
+    distance) of any defect; the rest are held fixed."""
+
+    within: float
+
+    def __post_init__(self) -> None:
+        v.store(self, "within", v.number(self.within, "within"))

@@ -26,7 +26,7 @@ from typing import Any, Iterator, Mapping
 
 from .errors import InputError
 from .variants import variants_of
-from .recipe import (DISPLACE_KEYS, STRAIN_KEYS, ESPRESSO_KEYS, KPOINTS_KEYS, ANTISITE_KEYS, ARRANGEMENT_KEYS, SCHOTTKY_KEYS, CHECK_KEYS, CRYSTAL_KEYS, DEFECT_KEYS, INTERSTITIAL_KEYS, NAME_PATTERN,
+from .recipe import (DISPLACE_KEYS, RELAX_KEYS, STRAIN_KEYS, ESPRESSO_KEYS, KPOINTS_KEYS, ANTISITE_KEYS, ARRANGEMENT_KEYS, SCHOTTKY_KEYS, CHECK_KEYS, CRYSTAL_KEYS, DEFECT_KEYS, INTERSTITIAL_KEYS, NAME_PATTERN,
                      SIZE_KEYS, SUBSTITUTION_KEYS, TOP_KEYS, VACANCY_KEYS, Recipe, load_yaml,
                      parse_recipe)
 
@@ -137,6 +137,7 @@ def _schema() -> dict:
         "kpoints": leaf(KPOINTS_KEYS),
         "displace": leaf(DISPLACE_KEYS),
         "strain": leaf(STRAIN_KEYS),
+        "relax": leaf(RELAX_KEYS),
         "espresso": {**leaf(k for k in ESPRESSO_KEYS if k != "pseudopotentials"),
                      "pseudopotentials": None},
         "defects": {

@@ -107,10 +107,12 @@ def output_path(out_dir: str | os.PathLike, name: str, key: str) -> Path:
 class WriteOptions:
     """Settings writers may take from the recipe: the k-point mesh
     (:class:`cellbuild.recipe_outputs.Kpoints`) and the pw.x input's
-    (:class:`cellbuild.recipe_outputs.Espresso`); None where not given."""
+    (:class:`cellbuild.recipe_outputs.Espresso`), the atoms free to relax; None
+    where not given."""
 
     kpoints: object = None
     espresso: object = None
+    free: object = None  # (N,) bool: atoms free to relax, file order (``relax``)
 
 
 def write_structure(structure: Structure, key: str, path: str | os.PathLike,

@@ -13,7 +13,9 @@ Layout::
       0.000000000000  0.000000000000  0.000000000000
 
 Atoms are grouped by element in type order, keeping structure order within
-an element. Fractional coordinates are wrapped into [0, 1).
+an element. Fractional coordinates are wrapped into [0, 1). With ``relax``, a
+``Selective dynamics`` line follows the counts and each row ends in ``T T T``
+(free) or ``F F F`` (fixed).
 """
 from __future__ import annotations
 
@@ -31,15 +33,19 @@ CELL_DECIMALS = 12
 def write(structure: Structure, handle, title: str, options=None) -> None:
     """Write ``structure`` as a VASP 5 POSCAR to binary ``handle``."""
     _text.check_codes(structure.species, len(structure.symbols))
-    handle.write(_header(structure, title).encode("ascii"))
+    free = options.free if options is not None else None
+    handle.write(_header(structure, title, free is not None).encode("ascii"))
     order = _grouped_order(structure.species)
     inverse = _text.inverse3(structure.cell)
     fraction = _text.Fixed(1, FRACTION_DECIMALS, signed=False)
-    row = _text.Row([fraction, fraction, fraction], indent=1)
+    flags = [_text.Text(("F F F", "T T T"))] if free is not None else []
+    row = _text.Row([fraction, fraction, fraction, *flags], indent=1)
 
     def columns(part: slice):
-        positions = structure.positions[part if order is None else order[part]]
-        return list(_text.wrap_unit(_text.linear3(positions.T, inverse), FRACTION_DECIMALS))
+        rows = part if order is None else order[part]
+        positions = structure.positions[rows]
+        moves = [] if free is None else [free[rows].astype(np.int64)]
+        return [*_text.wrap_unit(_text.linear3(positions.T, inverse), FRACTION_DECIMALS), *moves]
 
     _text.write_rows(handle, row, structure.n_atoms, columns)
 
@@ -51,7 +57,7 @@ def _grouped_order(species: np.ndarray) -> np.ndarray | None:
     return np.argsort(species, kind="stable")
 
 
-def _header(structure: Structure, title: str) -> str:
+def _header(structure: Structure, title: str, selective: bool = False) -> str:
     composition = structure.composition()
     default = "".join(f"{s}{n}" for s, n in composition.items()) or "structure"
     vectors = _text.format_fixed(structure.cell.ravel(), CELL_DECIMALS)
@@ -63,6 +69,7 @@ def _header(structure: Structure, title: str) -> str:
         *lattice,
         " ".join(composition),
         " ".join(str(n) for n in composition.values()),
+        *(["Selective dynamics"] if selective else []),
         "Direct",
     ]) + "\n"
 

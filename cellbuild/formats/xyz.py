@@ -27,7 +27,8 @@ DECIMALS = 10
 def write(structure: Structure, handle, title: str, options=None) -> None:
     """Write ``structure`` as extended XYZ to binary ``handle``."""
     _text.check_codes(structure.species, len(structure.symbols))
-    handle.write(_header(structure, title).encode("ascii"))
+    handle.write(_header(structure, title, options is not None and options.free is not None)
+                 .encode("ascii"))
     positions = structure.positions
     # max |x| from max and min: no N x 3 temporary for abs()
     top = max(float(positions.max()), -float(positions.min())) if positions.size else 0.0
@@ -37,24 +38,28 @@ def write(structure: Structure, handle, title: str, options=None) -> None:
     if charges is not None:
         top = float(np.max(np.abs(charges))) if charges.size else 0.0
         charge = [_text.Fixed(_text.int_digits_for(top, DECIMALS), DECIMALS)]
+    free = options.free if options is not None else None
+    flags = [_text.Text(("F", "T"))] if free is not None else []
     row = _text.Row([_text.Text(structure.symbols), coordinate, coordinate, coordinate,
-                     *charge])
+                     *charge, *flags])
 
     def columns(part: slice):
         xyz = positions[part]
         q = [] if charges is None else [charges[part]]
-        return [structure.species[part], xyz[:, 0], xyz[:, 1], xyz[:, 2], *q]
+        moves = [] if free is None else [free[part].astype(np.int64)]
+        return [structure.species[part], xyz[:, 0], xyz[:, 1], xyz[:, 2], *q, *moves]
 
     _text.write_rows(handle, row, structure.n_atoms, columns)
 
 
-def _header(structure: Structure, title: str) -> str:
+def _header(structure: Structure, title: str, move_mask: bool = False) -> str:
     lattice = " ".join(_text.format_fixed(structure.cell.ravel(), DECIMALS))
     # Keep the title a plain quoted string for extended-XYZ parsers: no quotes
     # or backslashes inside.
     name = _text.one_line(title, "").replace('"', "'").replace("\\", "/")
-    properties = "species:S:1:pos:R:3" + (":initial_charges:R:1" if structure.charges is not None
-                                          else "")
+    properties = ("species:S:1:pos:R:3"
+                  + (":initial_charges:R:1" if structure.charges is not None else "")
+                  + (":move_mask:L:1" if move_mask else ""))  # ASE's name: T moves
     comment = (f'Lattice="{lattice}" Properties={properties} pbc="T T T"'
                + (f' title="{name}"' if name else ""))
     return f"{structure.n_atoms}\n{comment}\n"
