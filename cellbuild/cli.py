@@ -15,6 +15,7 @@ from typing import List, Optional
 
 import typer
 
+from .cli_text import batch_summary, plan_text, summary
 from .errors import InputError
 
 app = typer.Typer(
@@ -121,7 +122,7 @@ def make(
         with _bad_input_exits(out):
             result = make_one(recipe, out, force=force, strict=strict,
                               progress=_progress(recipe.name))
-        _summary(result)
+        summary(result)
         if not result.passed:
             code = EXIT_FAILED_CHECK
     raise typer.Exit(code)
@@ -148,45 +149,6 @@ def _progress(name: str):
     return note
 
 
-def _species_text(r: dict) -> str:
-    """``Cu`` for one species, ``A=Mg B=O`` for a compound's sublattices."""
-    species = r["species"]
-    if len(species) == 1:
-        return r["element"]
-    return " ".join(f"{label}={element}" for label, element in species.items())
-
-
-def _summary(result) -> None:
-    r = result.report
-    box = " x ".join(f"{x:.3f}" for x in r["cell_lengths"])
-    passed = sum(c["passed"] for c in r["checks"])
-    verdict = "all checks passed" if result.passed else "CHECKS FAILED"
-    typer.echo(f"{r['name']}: {r['n_atoms']:,} atoms, {r['lattice']} {_species_text(r)} "
-               f"a = {r['lattice_constant']:.5f} A, box {box} A; "
-               f"{passed}/{len(r['checks'])} checks passed ({verdict})")
-    if r.get("size_note"):
-        typer.echo(f"  note: {r['size_note']}")
-    for w in r.get("warnings", []):
-        typer.echo(f"  warning: {w}")
-    for c in r["checks"]:
-        if not c["passed"]:
-            typer.echo(f"  failed {c['name']}: {c['detail']}")
-    arranged, config = r.get("arrangement"), r.get("configuration")
-    if arranged:
-        rank = f" (rank {arranged['rank']} of {arranged['of']})" if "rank" in arranged else ""
-        typer.echo(f"  arrangement  objective {arranged['objective']:.4g}{rank}; best of "
-                   f"{arranged['random_draws']} random draws {arranged['best_random_objective']:.4g}; "
-                   f"{arranged['steps']:,} steps")
-    if config:
-        pair = (f", defects {config['pair_distance']:.4f} A apart" if config["pair_distance"]
-                is not None else "")
-        typer.echo(f"  placement    configuration {config['index']} of {config['configurations']}, "
-                   f"multiplicity {config['multiplicity']:,} of {config['placements']:,}{pair}")
-    for key, info in r["outputs"].items():
-        typer.echo(f"  {key:12s} {info['path']}  {info['bytes']:,} bytes")
-    typer.echo(f"  report       {result.report_path}")
-
-
 @app.command()
 def plan(
     recipe: Path = typer.Argument(..., help="Recipe file (YAML)."),
@@ -204,49 +166,7 @@ def plan(
         typer.echo(json.dumps(plans if len(plans) > 1 else plans[0], indent=2))
         return
     for p in plans:
-        typer.echo(_plan_text(p))
-
-
-def _plan_text(p: dict) -> str:
-    lines = [
-        f"{p['name']}: {p['lattice']} {_species_text(p)}",
-        f"  lattice constant  {p['lattice_constant']:.6f} A ({p['lattice_constant_source']})",
-        f"  repeat            {' x '.join(map(str, p['repeat']))} "
-        + ("oriented boxes" if p["axes"] else "cells of the matrix" if p["matrix"]
-           else "conventional cells"),
-        f"  box               {' x '.join(f'{x:.4f}' for x in p['box'])} A"
-        + ("" if all(abs(v) < 1e-12 for i, row in enumerate(p["cell"]) for j, v in enumerate(row)
-                     if i != j) else
-           "; vectors " + ", ".join("(" + " ".join(f"{v:.4f}" for v in row) + ")"
-                                    for row in p["cell"])),
-        f"  atoms             {p['n_atoms']:,} ({p['n_sites']:,} lattice sites)",
-    ]
-    if p["size_note"]:
-        lines.append(f"  note: {p['size_note']}")
-    if p["axes"]:
-        lines.append("  axes              " + ", ".join(
-            f"{n} [{' '.join(map(str, a))}]" for n, a in p["axes"].items()))
-    if p["matrix"]:
-        lines.append("  matrix            " + " ".join(str(r) for r in p["matrix"]))
-    if p["cif"]:
-        lines.append(f"  from CIF          {p['cif']}")
-    for name, value in p["parameters"].items():
-        lines.append(f"  {name:17s} {value:.6g}")
-    if len(p["sublattices"]) > 1:
-        lines.append("  sublattices       " + ", ".join(
-            f"{label} {s['element']} {s['sites']:,}" for label, s in p["sublattices"].items()))
-    for d in p["defects"]:
-        lines.append(f"  {d['kind']:17s} {d['placed']:,} {d['element']} on {d['on']} ({d['key']})")
-    if p["arrangement"]:
-        a = p["arrangement"]
-        lines.append(f"  arrangement       {a['target']} over {a['shells']} shell(s), "
-                     f"up to {a['steps']:,} swaps")
-    lines.append(f"  memory (est.)     {p['estimated_memory_bytes'] / 1e6:,.1f} MB")
-    for key, size in p["estimated_file_bytes"].items():
-        lines.append(f"  {key:17s} ~{size / 1e6:,.2f} MB")
-    for w in p["warnings"]:
-        lines.append(f"  warning: {w}")
-    return "\n".join(lines)
+        typer.echo(plan_text(p))
 
 
 @app.command()
@@ -268,6 +188,10 @@ def batch(
     workers: Optional[str] = typer.Option(None, "--workers", "-j", metavar="N",
                                           help="Worker processes (default: all cores)."),
     junit: Optional[Path] = typer.Option(None, "--junit", help="Also write a JUnit XML report."),
+    collect: Optional[Path] = typer.Option(None, "--collect", metavar="FILE",
+                                           help="Also gather every structure into one multi-frame extended XYZ file."),
+    db: Optional[str] = typer.Option(None, "--db", metavar="DB",
+                                     help="Also write every structure into an ASE database (NAME.db or a URL)."),
 ) -> None:
     """Build every recipe under DIR (every sweep point) in parallel into OUT.
 
@@ -287,6 +211,10 @@ def batch(
     try:
         with _bad_input_exits(out):
             workers = _positive_workers(workers)
+            if collect is not None or db is not None:
+                from .training_sets import check_targets
+
+                check_targets(collect, db)
             result = build_library(source, out, workers=workers, on_done=on_done,
                                    on_planned=bar.planned if bar else None)
             if junit is not None:
@@ -294,32 +222,18 @@ def batch(
     finally:
         if bar:
             bar.close()
-    _batch_summary(result, show_problems=bar is not None)
+    batch_summary(result, show_problems=bar is not None)
+    with _bad_input_exits(out):
+        if collect is not None or db is not None:
+            from .training_sets import collect as collect_frames, to_database
+
+            if collect is not None:
+                n = collect_frames(Path(out), result.manifest, collect)
+                typer.echo(f"collected {n} structure(s) into {collect}")
+            if db is not None:
+                written, updated = to_database(Path(out), result.manifest, db)
+                typer.echo(f"database {db}: {written} row(s) written, {updated} updated")
     raise typer.Exit(result.exit_code)
-
-
-def _batch_summary(result, show_problems: bool) -> None:
-    """Counts, where the manifest went and (after a progress bar) the problem lines."""
-    from .batch import outcome_line
-
-    statuses = [o.status for o in result.outcomes]
-    if show_problems:
-        for o in result.outcomes:
-            if o.status != "passed":
-                typer.echo(outcome_line(o))
-    if show_problems:
-        for o in result.outcomes:
-            if o.status == "passed" and o.warnings:
-                typer.echo(outcome_line(o))
-    if result.removed:
-        typer.echo(f"removed {len(result.removed)} file(s) the previous manifest listed "
-                   "and this build no longer writes")
-    if result.temporaries:
-        typer.echo(f"removed {len(result.temporaries)} temporary file(s) left by an "
-                   "interrupted run")
-    typer.echo(f"{len(statuses)} structure(s): {statuses.count('passed')} passed, "
-               f"{statuses.count('failed')} failed checks, {statuses.count('error')} "
-               f"could not be built; manifest {result.manifest_path}")
 
 
 @app.command()
@@ -327,6 +241,8 @@ def verify(
     manifest: Path = typer.Argument(..., help="OUT/manifest.json written by `cellbuild batch`."),
     workers: Optional[str] = typer.Option(None, "--workers", "-j", metavar="N",
                                           help="Worker processes (default: all cores)."),
+    db: Optional[str] = typer.Option(None, "--db", metavar="DB",
+                                     help="Also check the ASE database rows against the manifest."),
 ) -> None:
     """Rebuild every manifest entry in a temporary folder and compare bytes.
 
@@ -349,6 +265,18 @@ def verify(
             bar.close()
     for difference in result.differences:
         typer.echo(difference.line())
+    if db is not None:
+        import json as _json
+
+        from .training_sets import check_database
+
+        with _bad_input_exits():
+            rows = check_database(_json.loads(Path(manifest).read_text()), db)
+        for name, what in rows:
+            typer.echo(f"{name}: {what}")
+        if rows:
+            typer.echo(f"{len(rows)} database row(s) differ from the manifest")
+            raise typer.Exit(EXIT_FAILED_CHECK)
     if result.ok:
         typer.echo(f"verified: all {result.n_entries} structure(s) match the manifest")
         raise typer.Exit(EXIT_OK)
