@@ -18,6 +18,7 @@ from __future__ import annotations
 
 import io
 import json
+import re
 from pathlib import Path
 
 from .errors import InputError
@@ -51,6 +52,11 @@ def metadata(entry: dict, report: dict) -> dict:
             "passed": bool(entry["passed"]), "sweep": json.dumps(entry.get("sweep") or {}),
             "strain_volumetric": float(strain.get("volumetric", 0.0))}
     meta.update({f"n_{kind}": n for kind, n in sorted(counts.items())})
+    for key, value in (entry.get("sweep") or {}).items():  # each swept value as its own key
+        if isinstance(value, (bool, int, float, str)):
+            meta["sweep_" + re.sub(r"\W", "_", str(key))] = value
+    for key, info in (entry.get("outputs") or {}).items():
+        meta["sha256_" + re.sub(r"\W", "_", key)] = info["sha256"]
     config = report.get("configuration")
     if config:  # placement: distinct
         meta.update(configuration=config["index"], multiplicity=config["multiplicity"])

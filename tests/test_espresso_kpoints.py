@@ -122,3 +122,29 @@ def test_a_sweep_over_the_spacing_gives_a_convergence_series(cli, recipe_file, t
     assert cli("make", recipe_file(data, "k.yaml"), "--out", out).exit_code == 0
     meshes = [(out / f"k__spacing-{s}.kpoints").read_text().splitlines()[3] for s in (0.2, 0.4)]
     assert meshes == ["9 9 9", "5 5 5"]
+
+
+def test_the_mgo_vacancy_demo_needs_no_hand_edits(cli, tmp_path):
+    """recipes/dft/mgo-vacancy-dft.yaml: the pw.x input (calculation 'relax', if_pos
+    flags) and the POSCAR (selective dynamics) fix the same atoms, as ASE reads them;
+    pymatgen reads the KPOINTS file."""
+    from pathlib import Path
+
+    import ase.io
+    from pymatgen.io.vasp.inputs import Kpoints
+
+    root = Path(__file__).resolve().parent.parent
+    out = tmp_path / "out"
+    result = cli("make", root / "recipes" / "dft" / "mgo-vacancy-dft.yaml", "--out", out)
+    assert result.exit_code == 0, result.output
+    pw = ase.io.read(out / "mgo-vo-dft.pwi", format="espresso-in")
+    poscar = ase.io.read(out / "mgo-vo-dft.vasp", format="vasp")
+    assert np.abs(pw.positions - poscar.positions).max() < 1e-8
+    assert set(pw.constraints[0].get_indices()) == set(poscar.constraints[0].get_indices())
+    report = json.loads((out / "mgo-vo-dft.report.json").read_text())
+    # the 2 x 2 x 2 cell folds the sixth-nearest O pair onto one atom each (periodic
+    # images at +-a): 6 Mg + 12 O + 8 Mg + 3 O within 4.5 A of the vacant O site
+    assert report["relax"]["free"] == 29 and len(pw.constraints[0].get_indices()) == 63 - 29
+    text = (out / "mgo-vo-dft.pwi").read_text()
+    assert "calculation = 'relax'" in text and "Mg.pbe-spnl-kjpaw.UPF" in text
+    assert list(Kpoints.from_file(out / "mgo-vo-dft.kpoints").kpts[0]) == [3, 3, 3]

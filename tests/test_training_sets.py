@@ -80,3 +80,31 @@ def test_a_bad_database_name_exits_2(cli, library, tmp_path):
     result = cli("batch", src, "--out", out, "--workers", "1", "--db", tmp_path / "lib.txt")
     assert result.exit_code == 2 and "`--db`" in result.output, result.output
     assert not out.exists()  # refused before anything was built
+
+
+def test_the_demo_training_library_lands_in_one_file_and_one_database(cli, tmp_path):
+    """recipes/training: 200 strained, rattled, thermal and defected structures from
+    sweeps, each a frame and a row with its metadata."""
+    import ase.db
+    import ase.io
+    from pathlib import Path
+
+    import shutil
+
+    root = Path(__file__).resolve().parent.parent
+    shutil.copytree(root / "recipes" / "training", tmp_path / "training")
+    out = tmp_path / "lib"
+    result = cli("batch", tmp_path / "training", "--out", out,
+                 "--collect", tmp_path / "lib.extxyz", "--db", tmp_path / "lib.db")
+    assert result.exit_code == 0, result.output
+    frames = ase.io.read(tmp_path / "lib.extxyz", index=":")
+    db = ase.db.connect(tmp_path / "lib.db")
+    assert len(frames) == db.count() == 200
+    kinds = {f.info["structure"].split("__")[0] for f in frames}
+    assert kinds == {"cu-eos", "cu-thermal", "cu-vac-shear", "cuni-strained", "mgo-rattled"}
+    row = next(db.select(structure="cu-eos__volumetric-0.04__seed-3"))
+    assert row.sweep_strain_volumetric == 0.04 and row.sweep_seed == 3
+    assert row.strain_volumetric == pytest.approx(0.04, abs=1e-12)
+    manifest = json.loads((out / "manifest.json").read_text())
+    entry = next(e for e in manifest["structures"] if e["name"] == row.structure)
+    assert row.sha256_xyz == entry["outputs"]["xyz"]["sha256"]

@@ -30,7 +30,9 @@ Layout::
     K_POINTS automatic
     7 7 7 0 0 0
 
-Only elements with atoms are species (pw.x wants ntyp of them). A metal needs
+Only elements with atoms are species (pw.x wants ntyp of them). With ``relax``,
+the calculation is ``'relax'`` (with an empty &IONS) and each ATOMIC_POSITIONS row
+ends in pw.x's ``if_pos`` flags, ``1 1 1`` (free) or ``0 0 0`` (fixed). A metal needs
 ``occupations`` and smearing added by hand: the file is a starting point.
 """
 from __future__ import annotations
@@ -57,17 +59,22 @@ def write(structure: Structure, handle, title: str, options=None) -> None:
     kpoints = (options.kpoints if options else None) or Kpoints(DEFAULT_SPACING)
     counts = np.bincount(structure.species, minlength=len(structure.symbols))
     present = [s for s, n in zip(structure.symbols, counts) if n]
-    handle.write(_header(structure, title, espresso, kpoints, present).encode("ascii"))
+    calculation = "relax" if options is not None and options.free is not None else "scf"
+    handle.write(_header(structure, title, espresso, kpoints, present, calculation)
+                 .encode("ascii"))
     crystal = espresso.positions == "crystal"
     values = structure.positions @ np.linalg.inv(structure.cell) if crystal \
         else structure.positions
     top = max(float(values.max()), -float(values.min())) if values.size else 0.0
     number = _text.Fixed(_text.int_digits_for(top, DECIMALS), DECIMALS)
-    row = _text.Row([_text.Text(structure.symbols), number, number, number])
+    free = options.free if options is not None else None
+    flags = [_text.Text(("0 0 0", "1 1 1"))] if free is not None else []  # pw.x's if_pos
+    row = _text.Row([_text.Text(structure.symbols), number, number, number, *flags])
 
     def columns(part: slice):
         xyz = values[part]
-        return [structure.species[part], xyz[:, 0], xyz[:, 1], xyz[:, 2]]
+        moves = [] if free is None else [free[part].astype(np.int64)]
+        return [structure.species[part], xyz[:, 0], xyz[:, 1], xyz[:, 2], *moves]
 
     _text.write_rows(handle, row, structure.n_atoms, columns)
     n = mesh(structure.cell, kpoints.spacing)
@@ -75,7 +82,8 @@ def write(structure: Structure, handle, title: str, options=None) -> None:
     handle.write(f"K_POINTS automatic\n{n[0]} {n[1]} {n[2]} {s[0]} {s[1]} {s[2]}\n".encode("ascii"))
 
 
-def _header(structure: Structure, title: str, espresso, kpoints, present: list[str]) -> str:
+def _header(structure: Structure, title: str, espresso, kpoints, present: list[str],
+            calculation: str) -> str:
     from .lammps import _mass
 
     name = re.sub(r"[^A-Za-z0-9_.-]", "_", _text.one_line(title, "structure")) or "structure"
@@ -87,9 +95,11 @@ def _header(structure: Structure, title: str, espresso, kpoints, present: list[s
     species = "".join(f"{e} {_mass(e)!r} {espresso.pseudopotential(e)}\n" for e in present)
     return (f"! {name}: ideal unrelaxed geometry written by cellbuild; check every setting\n"
             f"! K_POINTS from a spacing of {kpoints.spacing} 1/Angstrom, {kpoints.centring}\n"
-            f"&CONTROL\n  calculation = 'scf'\n  prefix = '{name}'\n  pseudo_dir = './'\n/\n"
+            f"&CONTROL\n  calculation = '{calculation}'\n  prefix = '{name}'\n"
+            f"  pseudo_dir = './'\n/\n"
             f"&SYSTEM\n  ibrav = 0\n  nat = {structure.n_atoms}\n  ntyp = {len(present)}\n"
-            f"{cutoff}/\n&ELECTRONS\n/\nATOMIC_SPECIES\n{species}"
+            f"{cutoff}/\n&ELECTRONS\n/\n" + ("&IONS\n/\n" if calculation == "relax" else "")
+            + f"ATOMIC_SPECIES\n{species}"
             f"CELL_PARAMETERS angstrom\n{cell}ATOMIC_POSITIONS {espresso.positions}\n")
 
 
