@@ -25,8 +25,9 @@ from pathlib import Path
 from typing import Any, Iterator, Mapping
 
 from .errors import InputError
+from .recipe_sections import DISPLACE_KEYS, ESPRESSO_KEYS, KPOINTS_KEYS, RELAX_KEYS, STRAIN_KEYS
 from .variants import variants_of
-from .recipe import (DISPLACE_KEYS, RELAX_KEYS, STRAIN_KEYS, ESPRESSO_KEYS, KPOINTS_KEYS, ANTISITE_KEYS, ARRANGEMENT_KEYS, SCHOTTKY_KEYS, CHECK_KEYS, CRYSTAL_KEYS, DEFECT_KEYS, INTERSTITIAL_KEYS, NAME_PATTERN,
+from .recipe import (ANTISITE_KEYS, ARRANGEMENT_KEYS, SCHOTTKY_KEYS, CHECK_KEYS, CRYSTAL_KEYS, DEFECT_KEYS, INTERSTITIAL_KEYS, NAME_PATTERN,
                      SIZE_KEYS, SUBSTITUTION_KEYS, TOP_KEYS, VACANCY_KEYS, Recipe, load_yaml,
                      parse_recipe)
 
