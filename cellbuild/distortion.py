@@ -26,8 +26,10 @@ from __future__ import annotations
 import numpy as np
 
 from .audit import Check
-from .displacements import recovered_strain, rattle, rms_by_species, thermal_sigma
 from .structure import Structure
+
+# cellbuild.displacements (scipy.integrate, scipy.constants: 0.4 s to import) is
+# imported where it is used, so a make without strain or displacement never pays it
 
 
 def distorted(recipe) -> bool:
@@ -37,6 +39,7 @@ def distorted(recipe) -> bool:
 
 def distort(recipe, structure: Structure) -> tuple[Structure, dict]:
     """The strained and displaced structure and the facts for the report."""
+    from .displacements import rattle, recovered_strain, rms_by_species
     cell, positions = structure.cell, structure.positions
     facts: dict = {"strain": None, "displacement": None}
     if recipe.strain is not None:
@@ -62,6 +65,7 @@ def distort(recipe, structure: Structure) -> tuple[Structure, dict]:
 
 def _sigma(d, structure: Structure):
     """(sigma per atom or one value, sigma per element present) in Angstrom."""
+    from .displacements import thermal_sigma
     present = [s for s, n in zip(structure.symbols, np.bincount(
         structure.species, minlength=len(structure.symbols))) if n]
     if d.rattle is not None:
