@@ -25,7 +25,8 @@ from pathlib import Path
 from typing import Any, Iterator, Mapping
 
 from .errors import InputError
-from .recipe_sections import DISPLACE_KEYS, ESPRESSO_KEYS, KPOINTS_KEYS, RELAX_KEYS, STRAIN_KEYS
+from .recipe_sections import (BOUNDARY_KEYS, DISPLACE_KEYS, ESPRESSO_KEYS, KPOINTS_KEYS,
+                              RELAX_KEYS, STRAIN_KEYS, SURFACE_KEYS)
 from .variants import variants_of
 from .recipe import (ANTISITE_KEYS, ARRANGEMENT_KEYS, SCHOTTKY_KEYS, CHECK_KEYS, CRYSTAL_KEYS, DEFECT_KEYS, INTERSTITIAL_KEYS, NAME_PATTERN,
                      SIZE_KEYS, SUBSTITUTION_KEYS, TOP_KEYS, VACANCY_KEYS, Recipe, load_yaml,
@@ -139,6 +140,8 @@ def _schema() -> dict:
         "displace": leaf(DISPLACE_KEYS),
         "strain": leaf(STRAIN_KEYS),
         "relax": leaf(RELAX_KEYS),
+        "surface": leaf(SURFACE_KEYS),
+        "grain_boundary": leaf(BOUNDARY_KEYS),
         "espresso": {**leaf(k for k in ESPRESSO_KEYS if k != "pseudopotentials"),
                      "pseudopotentials": None},
         "defects": {

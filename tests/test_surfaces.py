@@ -173,3 +173,19 @@ def test_inspect_finds_no_slab_in_a_bulk_box(cli, recipe_file, tmp_path):
     assert cli("make", recipe_file(data), "--out", out).exit_code == 0
     found = json.loads(cli("inspect", out / "bulk.xyz", "--json").output)
     assert found["slab"] is None and found["lattice"] == "fcc"
+
+
+def test_a_sweep_over_the_layers_gives_a_slab_thickness_series(cli, recipe_file, tmp_path):
+    """fcc(111): one close-packed plane per layer, each holding the same atoms (fcc
+    geometry, common practice): five layers hold 5/4 of four layers' atoms."""
+    import json
+
+    data = {"name": "s", "crystal": {"element": "Cu", "lattice": "fcc", "a": 3.615},
+            "size": {"repeat": [1, 1, 1]}, "outputs": ["xyz"],
+            "surface": {"miller": [1, 1, 1], "layers": 4, "vacuum": 10.0},
+            "sweep": {"surface.layers": [4, 5]}}
+    out = tmp_path / "out"
+    result = cli("make", recipe_file(data, "s.yaml"), "--out", out)
+    assert result.exit_code == 0, result.output
+    n = [json.loads((out / f"s__layers-{k}.report.json").read_text())["n_atoms"] for k in (4, 5)]
+    assert n[1] - n[0] == n[0] // 4
