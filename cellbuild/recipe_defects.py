@@ -164,8 +164,9 @@ class Arrangement:
                 v.fail("target", self.target, "is not a known target",
                        "give quasirandom, or a mapping of shell to alpha such as {1: -0.2}")
         else:
-            given = dict(self.target) if isinstance(self.target, (tuple, list)) else self.target
-            if not isinstance(given, dict) or not given:
+            given = v.mapping(self.target, "target", "must be quasirandom or a mapping of shell to alpha",
+                              "for example target: {1: -0.2}")
+            if not given:
                 v.fail("target", self.target, "must be quasirandom or a mapping of shell to alpha")
             v.store(self, "target", tuple(sorted(
                 (_shell(k, "target"), v.number(x, f"target.{k}", positive=False))
@@ -176,9 +177,8 @@ class Arrangement:
         v.store(self, "steps", v.integer(self.steps, "steps", minimum=1))
         if self.steps > 10**9:
             v.fail("steps", self.steps, "must be at most 1,000,000,000")
-        w = dict(self.weights) if isinstance(self.weights, (tuple, list)) else self.weights
-        if not isinstance(w, dict):
-            v.fail("weights", self.weights, "must map shells to weights, such as {1: 1.0, 2: 0.5}")
+        w = v.mapping(self.weights, "weights",
+                      "must map shells to weights, such as {1: 1.0, 2: 0.5}")
         v.store(self, "weights", tuple(sorted((_shell(k, "weights"),
                                                v.number(x, f"weights.{k}", positive=False))
                                               for k, x in w.items())))

@@ -100,7 +100,8 @@ class Displace:
             v.fail("debye_temperature", None, "is required with temperature",
                    "give the Debye temperature in K, one value or per element")
         if isinstance(theta, (tuple, list, dict)):
-            pairs = dict(theta)
+            pairs = v.mapping(theta, "debye_temperature", "must be a number or a mapping of "
+                              "element to Debye temperature (K)", "for example {Cu: 343, Ni: 450}")
             v.store(self, "debye_temperature", tuple(
                 (v.element(e, "debye_temperature"), v.number(t, f"debye_temperature.{e}"))
                 for e, t in pairs.items()))

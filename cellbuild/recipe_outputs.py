@@ -50,11 +50,8 @@ class Espresso:
     def __post_init__(self) -> None:
         if self.ecutwfc is not None:
             v.store(self, "ecutwfc", v.number(self.ecutwfc, "ecutwfc"))
-        pairs = dict(self.pseudopotentials) if isinstance(self.pseudopotentials, (tuple, list)) \
-            else self.pseudopotentials
-        if not isinstance(pairs, dict):
-            v.fail("pseudopotentials", self.pseudopotentials,
-                   "must map elements to file names", "for example {Cu: Cu.pbe.UPF}")
+        pairs = v.mapping(self.pseudopotentials, "pseudopotentials",
+                          "must map elements to file names", "for example {Cu: Cu.pbe.UPF}")
         v.store(self, "pseudopotentials", tuple(
             (v.element(e, "pseudopotentials"), _file_name(f, f"pseudopotentials.{e}"))
             for e, f in pairs.items()))

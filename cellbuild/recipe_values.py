@@ -116,6 +116,16 @@ def element(value: Any, key: str) -> str:
     return symbol
 
 
+def mapping(value: Any, key: str, message: str, hint: str | None = None) -> dict:
+    """A mapping given as a dict or as a tuple of (key, value) pairs (the parser
+    passes YAML mappings as pairs; a YAML list is refused, not read as pairs)."""
+    if isinstance(value, dict):
+        return dict(value)
+    if isinstance(value, tuple) and all(isinstance(x, tuple) and len(x) == 2 for x in value):
+        return dict(value)
+    fail(key, value, message, hint)
+
+
 def sequence(value: Any, key: str, message: str) -> tuple:
     """A list, tuple or numpy array as a tuple (of Python numbers, for an array)."""
     if type(value).__module__ == "numpy" and getattr(value, "ndim", 0) == 1:

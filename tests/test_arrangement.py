@@ -81,6 +81,8 @@ def test_the_same_recipe_and_seed_give_the_same_bytes(cli, recipe_file, tmp_path
     ([{"element": "Au", "count": 4}], {"steps": 0}, "defects.arrangement.steps"),
     ([{"element": "Au", "count": 4}], {"weights": [1, 2]}, "defects.arrangement.weights"),
     ([{"element": "Au", "count": 4}], {"temperature": 3}, "defects.arrangement.temperature"),
+    ([{"element": "Au", "count": 4}], {"target": [1, 2]}, "defects.arrangement.target"),
+    ([{"element": "Au", "count": 4}], {"target": [[1, -0.2]]}, "defects.arrangement.target"),
 ])
 def test_bad_arrangements_exit_2_in_one_sentence(cli, recipe_file, tmp_path, subs, arrangement,
                                                  key):

@@ -140,6 +140,8 @@ print "END $(pe/atoms:%.8f)"
     ({"displace": {"temperature": 300}}, "displace.debye_temperature"),
     ({"displace": {}}, "displace"),
     ({"displace": {"rattle": -0.1}}, "displace.rattle"),
+    ({"displace": {"temperature": 300, "debye_temperature": [1, 2]}},
+     "displace.debye_temperature"),
     ({"displace": {"temperature": 300, "debye_temperature": {"Ni": 450}}},
      "displace.debye_temperature"),
     ({"strain": {"volumetric": -1.5}}, "strain.volumetric"),
