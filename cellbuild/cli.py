@@ -266,12 +266,11 @@ def verify(
     for difference in result.differences:
         typer.echo(difference.line())
     if db is not None:
-        import json as _json
-
+        from .manifest import read_manifest
         from .training_sets import check_database
 
         with _bad_input_exits():
-            rows = check_database(_json.loads(Path(manifest).read_text()), db)
+            rows = check_database(read_manifest(manifest), db)
         for name, what in rows:
             typer.echo(f"{name}: {what}")
         if rows:

@@ -73,6 +73,14 @@ def place_defects(plan: Plan, perfect: Structure) -> tuple[Structure, list[Place
     return apply(plan, perfect, placements), placements
 
 
+def atom_indices(structure: Structure, groups: list[np.ndarray]) -> list[np.ndarray]:
+    """For each array of grid site ids in ``groups``, the indices (0-based, file
+    order) of the atoms of ``structure`` on those sites (each must hold one); one
+    sort of the site ids serves every group."""
+    order = np.argsort(structure.site, kind="stable")
+    return [order[np.searchsorted(structure.site, ids, sorter=order)] for ids in groups]
+
+
 def apply(plan: Plan, perfect: Structure, placements: list[Placement]) -> Structure:
     """The structure with ``placements`` applied to the perfect crystal ``perfect``."""
     n_grid, n_basis = plan.crystal.n_grid, plan.crystal.n_basis

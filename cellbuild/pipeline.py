@@ -19,7 +19,7 @@ import numpy as np
 from . import __version__
 from .audit import Audit, audit
 from .build import Plan, build_perfect, check_disk_space, resolve, size_key, size_value
-from .defects import Placement, apply, place_defects
+from .defects import Placement, apply, atom_indices, place_defects
 from .distortion import distort, distorted, with_distortion
 from .relaxation import GROUPS_EXTENSION, groups_text
 from .errors import InputError
@@ -302,18 +302,17 @@ def defect_sites(built: Built) -> dict:
     from .build import site_positions
 
     plan, structure = built.plan, built.structure
-    order = np.argsort(structure.site, kind="stable")
+    # the sites move with a strained cell
+    strain = plan.recipe.strain.matrix().T if plan.recipe.strain is not None else np.eye(3)
+    atoms = atom_indices(structure, [p.site_ids for p in built.placements if p.kind != "vacancy"])
     entries = []
     for p in built.placements:
         entry = {"kind": p.kind, "element": p.element, "on": p.on, "key": p.key,
                  "site_ids": p.site_ids.tolist()}
         if p.kind != "vacancy":
-            idx = order[np.searchsorted(structure.site, p.site_ids, sorter=order)]
-            entry["atom_ids"] = (idx + 1).tolist()
+            entry["atom_ids"] = (atoms.pop(0) + 1).tolist()
         if p.kind in ("vacancy", "interstitial"):
-            pos = site_positions(plan.crystal, plan.repeat, p.site_ids)
-            if plan.recipe.strain is not None:  # the sites move with the strained cell
-                pos = pos @ plan.recipe.strain.matrix().T
+            pos = site_positions(plan.crystal, plan.repeat, p.site_ids) @ strain
             entry["positions"] = np.round(pos, 10).tolist()
         entries.append(entry)
     return {"name": plan.recipe.name, "seed": plan.recipe.seed,

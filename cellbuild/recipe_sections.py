@@ -5,6 +5,7 @@ errors in the file); each section's keys are checked against its list here.
 """
 from __future__ import annotations
 
+from dataclasses import dataclass
 from typing import Any
 
 from .recipe_geometry import Displace, GrainBoundary, Strain, Surface
@@ -19,52 +20,47 @@ STRAIN_KEYS = ("volumetric", "tensor")
 RELAX_KEYS = ("within",)
 
 
+@dataclass(frozen=True)
+class _Section:
+    """One section: its type, its keys, the keys it needs (with an example), the
+    prefix its type's own error keys get, and the keys whose YAML mapping it takes
+    as (key, value) pairs."""
+
+    cls: type
+    keys: tuple[str, ...]
+    required: tuple[str, ...]
+    example: str
+    prefix: str
+    pairs: tuple[str, ...] = ()
+
+
+#: Every optional section, by its top-level key.
+SECTIONS = {
+    "surface": _Section(Surface, SURFACE_KEYS, ("miller", "layers", "vacuum"),
+                        "surface: {miller: [1, 1, 1], layers: 6, vacuum: 15.0}", ""),
+    "grain_boundary": _Section(GrainBoundary, BOUNDARY_KEYS, ("axis", "plane"),
+                               "grain_boundary: {axis: [0, 0, 1], plane: [3, 1, 0]}", ""),
+    "kpoints": _Section(Kpoints, KPOINTS_KEYS, ("spacing",), "kpoints: {spacing: 0.25}",
+                        "kpoints"),
+    "espresso": _Section(Espresso, ESPRESSO_KEYS, (), "", "espresso", ("pseudopotentials",)),
+    "displace": _Section(Displace, DISPLACE_KEYS, (), "", "displace", ("debye_temperature",)),
+    "strain": _Section(Strain, STRAIN_KEYS, (), "", "strain"),
+    "relax": _Section(Relax, RELAX_KEYS, ("within",), "relax: {within: 6.0}", "relax"),
+}
+
+
 def parse_sections(c, data: dict) -> dict[str, Any]:
     """The Recipe fields of the sections present in ``data``."""
     fields: dict[str, Any] = {}
-    if "surface" in data:
-        surface = c.mapping(data["surface"], "surface")
-        c.known_keys(surface, SURFACE_KEYS, "surface")
-        for need in ("miller", "layers", "vacuum"):
-            if need not in surface:
-                c.fail_missing(f"surface.{need}", "is required",
-                               "for example surface: {miller: [1, 1, 1], layers: 6, vacuum: 15.0}")
-        fields["surface"] = c.make(Surface, "", **surface)
-    if "grain_boundary" in data:
-        gb = c.mapping(data["grain_boundary"], "grain_boundary")
-        c.known_keys(gb, BOUNDARY_KEYS, "grain_boundary")
-        for need in ("axis", "plane"):
-            if need not in gb:
-                c.fail_missing(f"grain_boundary.{need}", "is required",
-                               "for example grain_boundary: {axis: [0, 0, 1], plane: [3, 1, 0]}")
-        fields["grain_boundary"] = c.make(GrainBoundary, "", **gb)
-    if "kpoints" in data:
-        k = c.mapping(data["kpoints"], "kpoints")
-        c.known_keys(k, KPOINTS_KEYS, "kpoints")
-        if "spacing" not in k:
-            c.fail_missing("kpoints.spacing", "is required", "for example kpoints: {spacing: 0.25}")
-        fields["kpoints"] = c.make(Kpoints, "kpoints", **k)
-    if "espresso" in data:
-        e = c.mapping(data["espresso"], "espresso")
-        c.known_keys(e, ESPRESSO_KEYS, "espresso")
-        if "pseudopotentials" in e:
-            e = {**e, "pseudopotentials": tuple(c.mapping(e["pseudopotentials"],
-                                                          "espresso.pseudopotentials").items())}
-        fields["espresso"] = c.make(Espresso, "espresso", **e)
-    if "displace" in data:
-        d = c.mapping(data["displace"], "displace")
-        c.known_keys(d, DISPLACE_KEYS, "displace")
-        if isinstance(d.get("debye_temperature"), dict):
-            d = {**d, "debye_temperature": tuple(d["debye_temperature"].items())}
-        fields["displace"] = c.make(Displace, "displace", **d)
-    if "strain" in data:
-        st = c.mapping(data["strain"], "strain")
-        c.known_keys(st, STRAIN_KEYS, "strain")
-        fields["strain"] = c.make(Strain, "strain", **st)
-    if "relax" in data:
-        rx = c.mapping(data["relax"], "relax")
-        c.known_keys(rx, RELAX_KEYS, "relax")
-        if "within" not in rx:
-            c.fail_missing("relax.within", "is required", "for example relax: {within: 6.0}")
-        fields["relax"] = c.make(Relax, "relax", **rx)
+    for name, section in SECTIONS.items():
+        if name not in data:
+            continue
+        given = c.mapping(data[name], name)
+        c.known_keys(given, section.keys, name)
+        for need in section.required:
+            if need not in given:
+                c.fail_missing(f"{name}.{need}", "is required", f"for example {section.example}")
+        given = {k: tuple(x.items()) if k in section.pairs and isinstance(x, dict) else x
+                 for k, x in given.items()}
+        fields[name] = c.make(section.cls, section.prefix, **given)
     return fields

@@ -14,6 +14,7 @@ import numpy as np
 
 from . import neighbours
 from .build import site_positions
+from .defects import atom_indices
 
 #: Extension of the LAMMPS group file.
 GROUPS_EXTENSION = ".lammps-groups"
@@ -22,9 +23,8 @@ GROUPS_EXTENSION = ".lammps-groups"
 def free_atoms(plan, structure, placements, within: float) -> np.ndarray:
     """(N,) bool: atoms of ``structure`` (ideal positions, file order) free to move."""
     n = structure.n_atoms
-    order = np.argsort(structure.site, kind="stable")
-    atoms = [order[np.searchsorted(structure.site, p.site_ids, sorter=order)]
-             for p in placements if p.kind != "vacancy" and p.count]
+    atoms = atom_indices(structure, [p.site_ids for p in placements
+                                     if p.kind != "vacancy" and p.count])
     holes = [site_positions(plan.crystal, plan.repeat, p.site_ids)
              for p in placements if p.kind == "vacancy" and p.count]
     free = np.zeros(n, dtype=bool)

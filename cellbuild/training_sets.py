@@ -36,10 +36,19 @@ def _entries(out: Path, manifest: dict):
         key = next((k for k in READ_ORDER if k in outputs), None)
         if entry.get("error") or key is None or "report" not in outputs:
             continue
-        report = json.loads((out / outputs["report"]["path"]).read_text())
+        report = json.loads(_inside(out, outputs["report"]["path"]).read_text())
         types = report["types"] if key == "lammps-data" else None
-        atoms = read_file(out / outputs[key]["path"], types).structure.to_ase()
+        atoms = read_file(_inside(out, outputs[key]["path"]), types).structure.to_ase()
         yield entry, report, atoms
+
+
+def _inside(out: Path, relative: str) -> Path:
+    """``out / relative``, refused unless it resolves inside the library folder."""
+    path = (out / relative).resolve()
+    if not path.is_relative_to(out.resolve()):
+        raise InputError("lists a file outside the library", key="manifest", value=relative,
+                         hint="rebuild the library with cellbuild batch")
+    return path
 
 
 def metadata(entry: dict, report: dict) -> dict:

@@ -155,3 +155,31 @@ def test_bad_distortions_exit_2_in_one_sentence(cli, recipe_file, tmp_path, extr
     assert f"`{key}`" in result.output and len(result.output.strip().splitlines()) == 1, \
         result.output
     assert not out.exists()
+
+
+def test_the_written_structure_checks_fail_on_a_tampered_structure():
+    """One atom of a lightly rattled cell pushed onto its neighbour's site (a/sqrt2 away
+    along [110], fcc geometry): sites_kept and min_distance, both measured on the written
+    structure, fail; the untouched structure passes both."""
+    from dataclasses import replace
+
+    from cellbuild.audit import audit
+    from cellbuild.distortion import with_distortion
+    from cellbuild.pipeline import build
+    from cellbuild.recipe import parse_recipe
+
+    recipe = parse_recipe({"name": "t", "crystal": CU, "size": {"repeat": 3}, "seed": 1,
+                           "displace": {"rattle": 0.02}})
+    built = build(recipe)
+
+    def verdicts(written):
+        result = with_distortion(audit(built.plan, built.ideal, built.placements, workers=1),
+                                 built.plan, built.ideal, written, workers=1)
+        return {c.name: c.passed for c in result.checks}
+
+    assert verdicts(built.structure)["sites_kept"] and verdicts(built.structure)["min_distance"]
+    positions = built.structure.positions.copy()
+    positions[0] += np.array([1.0, 1.0, 0.0]) * 3.615 / 2 * 0.9
+    tampered = replace(built.structure, positions=positions)
+    found = verdicts(tampered)
+    assert not found["sites_kept"] and not found["min_distance"]

@@ -225,3 +225,25 @@ def test_readme_compound_snippet_builds_as_yaml_text(cli, tmp_path):
                     + "size: {repeat: 2}\n")
     result = cli("make", path, "--out", tmp_path / "out")
     assert result.exit_code == 0 and "all checks passed" in result.output, result.output
+
+
+def test_readme_reference_commented_sections_load_and_build(tmp_path):
+    """The reference block's commented calculation sections (kpoints, espresso, strain,
+    displace, relax), uncommented as a user would, load as YAML text and build."""
+    from cellbuild.pipeline import make
+
+    blocks = _yaml_blocks(README.read_text(encoding="utf-8"))
+    (reference,) = [b for b in blocks if b.startswith("name: al-host-perfect")]
+    keys = ("kpoints", "espresso", "strain", "displace", "relax")
+    lines = [ln[2:] if ln.startswith(tuple(f"# {k}:" for k in keys)) else ln
+             for ln in reference.splitlines()]
+    assert sum(ln.startswith(keys) for ln in lines) == len(keys)
+    text = "\n".join(lines).replace("outputs: [lammps-data, cif, xyz, poscar]",
+                                    "outputs: [espresso-in, kpoints, poscar]") + "\n"
+    recipe = parse_recipe(*parse_yaml(text, "README.md"), "README.md")
+    assert recipe.kpoints.spacing == 0.25 and recipe.espresso.ecutwfc == 45
+    assert recipe.strain.volumetric == 0.02 and recipe.displace.rattle == 0.05
+    assert recipe.relax.within == 6.0
+    result = make(recipe, tmp_path, workers=1)
+    assert set(result.outputs) == {"espresso-in", "kpoints", "poscar"}
+    assert result.report["relax"]["free"] > 0 and result.report["strain"] is not None
