@@ -7,6 +7,21 @@ files named ``.NAME.XXXXXXXX.part`` (``XXXXXXXX``: 8 random characters, as
 it has succeeded are ``.NAME.XXXXXXXX.bak``. :func:`is_temporary` recognises
 both, so a folder left by a killed process (SIGKILL, a power cut) can be
 cleaned.
+
+Durability is the caller's choice (``sync``):
+
+- ``sync=True`` (the default, what ``make`` does): each file's bytes are
+  flushed to the disk (``fsync``) before it is renamed into place, so after a
+  power cut a target holds either its old or its complete new bytes. This
+  costs one disk flush per file, most of a small structure's wall time on a
+  busy disk.
+- ``sync=False``: the rename still makes each file appear whole to readers
+  (atomicity does not depend on ``fsync``), but the bytes may still sit in the
+  page cache; a power cut (not a killed process) can then leave a new name
+  with empty or partial content. A caller writing many files (a batch) calls
+  :func:`sync_files` once at the end, with every file it wrote, before it
+  writes the record that vouches for them (the manifest, itself written with
+  ``sync=True``): a manifest on disk then implies its files are on disk too.
 """
 from __future__ import annotations
 
@@ -43,15 +58,20 @@ def _stage(target: Path, suffix: str = TEMP_SUFFIX) -> tuple[int, str]:
 
 
 @contextlib.contextmanager
-def atomic_writer(path: str | os.PathLike) -> Iterator[BinaryIO]:
-    """Open a binary handle whose content replaces ``path`` only on success."""
+def atomic_writer(path: str | os.PathLike, *, sync: bool = True) -> Iterator[BinaryIO]:
+    """Open a binary handle whose content replaces ``path`` only on success.
+
+    ``sync``: flush the bytes to the disk before the rename (see the module's
+    note on durability); ``False`` leaves that to a later :func:`sync_files`.
+    """
     target = Path(path)
     fd, tmp_name = _stage(target)
     try:
         with os.fdopen(fd, "wb", buffering=1 << 20) as handle:
             yield handle
             handle.flush()
-            os.fsync(handle.fileno())
+            if sync:
+                os.fsync(handle.fileno())
         os.chmod(tmp_name, 0o644)
         os.replace(tmp_name, target)
     except BaseException:
@@ -60,10 +80,58 @@ def atomic_writer(path: str | os.PathLike) -> Iterator[BinaryIO]:
         raise
 
 
-def write_bytes_atomic(path: str | os.PathLike, data: bytes) -> None:
-    """Write ``data`` to ``path`` atomically."""
-    with atomic_writer(path) as handle:
+def write_bytes_atomic(path: str | os.PathLike, data: bytes, *, sync: bool = True) -> None:
+    """Write ``data`` to ``path`` atomically (``sync`` as for :func:`atomic_writer`)."""
+    with atomic_writer(path, sync=sync) as handle:
         handle.write(data)
+
+
+def sync_files(paths: Iterable[str | os.PathLike], *, folders: bool = True) -> int:
+    """Flush files written with ``sync=False`` to the disk: one ``fsync`` per file,
+    then (``folders``) one per distinct parent folder, so the new names survive a
+    power cut as well as the bytes.
+
+    Files that have gone meanwhile (a later rebuild removed them) are skipped.
+    Returns the number of files flushed. Raises :class:`OSError` if the disk
+    reports a write error, which is what a caller must not ignore: the files
+    are then not known to be stored.
+    """
+    parents: dict[str, None] = {}  # insertion-ordered set: folders synced in a stable order
+    flushed = 0
+    for path in paths:
+        try:
+            fd = os.open(path, os.O_RDONLY)
+        except FileNotFoundError:
+            continue
+        try:
+            os.fsync(fd)
+        finally:
+            os.close(fd)
+        flushed += 1
+        parents[os.path.dirname(os.path.abspath(path))] = None
+    if folders:
+        for folder in parents:
+            _sync_folder(folder)
+    return flushed
+
+
+def _sync_folder(folder: str) -> None:
+    """fsync a folder's entry list (renames into it); file systems that cannot
+    (some network and FUSE ones answer EINVAL or EBADF) are skipped, as rsync
+    and git do."""
+    import errno
+
+    try:
+        fd = os.open(folder, os.O_RDONLY | getattr(os, "O_DIRECTORY", 0))
+    except FileNotFoundError:
+        return
+    try:
+        os.fsync(fd)
+    except OSError as exc:
+        if exc.errno not in (errno.EINVAL, errno.EBADF, errno.ENOTSUP, errno.EOPNOTSUPP):
+            raise
+    finally:
+        os.close(fd)
 
 
 class HashingWriter:
@@ -127,11 +195,16 @@ class StagedFiles:
             and the other gets an :class:`InputError`.
         root: if given, refuse any target whose folder, symbolic links
             resolved, is not inside ``root`` (a link must not lead writes out).
+        sync: flush each file to the disk before the commit (the default).
+            ``False`` leaves that to one :func:`sync_files` call over every
+            :meth:`commit`'s returned targets (see the module's note).
     """
 
-    def __init__(self, *, replace: bool = True, root: str | os.PathLike | None = None) -> None:
+    def __init__(self, *, replace: bool = True, root: str | os.PathLike | None = None,
+                 sync: bool = True) -> None:
         self.replace = replace
         self.root = root
+        self.sync = sync
         self._staged: list[tuple[str, Path]] = []
 
     def __enter__(self) -> "StagedFiles":
@@ -150,15 +223,17 @@ class StagedFiles:
         with os.fdopen(fd, "wb", buffering=1 << 20) as handle:
             yield handle
             handle.flush()
-            os.fsync(handle.fileno())
+            if self.sync:
+                os.fsync(handle.fileno())
         os.chmod(tmp_name, 0o644)
 
     def write_bytes(self, path: str | os.PathLike, data: bytes) -> None:
         with self.writer(path) as handle:
             handle.write(data)
 
-    def commit(self) -> None:
-        """Move every staged file into place, all or none.
+    def commit(self) -> list[Path]:
+        """Move every staged file into place, all or none; returns the targets
+        (for :func:`sync_files` when ``sync`` is off).
 
         Raises :class:`InputError` naming the target (not a temporary) when a
         target is a folder, its folder is not writable, it exists and
@@ -172,6 +247,7 @@ class StagedFiles:
         else:
             _commit_exclusive(staged)
         self._staged.clear()
+        return [target for _, target in staged]
 
     def discard(self) -> None:
         """Remove the temporaries of files not committed."""
