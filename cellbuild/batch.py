@@ -24,7 +24,7 @@ import hashlib
 import os
 from dataclasses import dataclass
 from pathlib import Path
-from typing import Callable, Sequence
+from typing import TYPE_CHECKING, Callable, Sequence
 
 from .batch_report import ProgressBar, junit_xml, outcome_line, write_junit  # noqa: F401
 from .errors import InputError
@@ -33,6 +33,9 @@ from .manifest import (MANIFEST_NAME, OUTPUT_SUFFIXES, RECIPE_SUFFIXES,  # noqa:
 from .outcomes import (EXIT_BAD_INPUT, EXIT_FAILED_CHECK, EXIT_OK, Job,  # noqa: F401
                        Outcome, Source, error_outcome, exit_code, sort_outcomes)
 from .pool import build_job, default_workers, run_jobs, sigterm_as_interrupt  # noqa: F401
+
+if TYPE_CHECKING:
+    from .executors import Executor
 
 #: Temporaries of these files in OUT are ours (``.NAME.lmp.XXXXXXXX.part`` ...).
 TEMPORARY_TARGETS = OUTPUT_SUFFIXES + (MANIFEST_NAME,)
@@ -49,10 +52,29 @@ class BatchResult:
     manifest_path: Path
     removed: list[str]
     temporaries: list[str] = ()
+    #: temporaries found after the build: left by workers that died mid-write
+    #: (their structures were built again elsewhere)
+    lost: list[str] = ()
+    #: who ran the jobs (:attr:`cellbuild.executors.Executor.description`) and its kind
+    executor: str = ""
+    executor_kind: str = "pool"
 
     @property
     def exit_code(self) -> int:
         return exit_code(self.outcomes)
+
+    def per_worker(self) -> dict[str, int]:
+        """Structures built per worker (address or process), sorted by worker."""
+        return worker_counts(self.outcomes)
+
+
+def worker_counts(outcomes: Sequence[Outcome]) -> dict[str, int]:
+    """How many of ``outcomes`` each worker built (outcomes never sent to one left out)."""
+    counts: dict[str, int] = {}
+    for outcome in outcomes:
+        if outcome.worker:
+            counts[outcome.worker] = counts.get(outcome.worker, 0) + 1
+    return dict(sorted(counts.items()))
 
 
 # ----------------------------------------------------------------------------- discovery
@@ -167,7 +189,7 @@ def _fallback_name(source: Source) -> str:
 
 
 def build_library(source_dir: str | os.PathLike, out: str | os.PathLike, *,
-                  workers: int | None = None,
+                  workers: int | None = None, executor: "Executor | None" = None,
                   on_done: Callable[[Outcome], None] | None = None,
                   on_planned: Callable[[int], None] | None = None) -> BatchResult:
     """Build every recipe under ``source_dir`` into ``out`` and write ``out/manifest.json``.
@@ -178,6 +200,10 @@ def build_library(source_dir: str | os.PathLike, out: str | os.PathLike, *,
     left alone). ``on_planned`` receives the number of structures once the
     recipes are expanded, ``on_done`` each outcome. SIGTERM stops the build
     like Ctrl-C (``KeyboardInterrupt``), leaving no temporaries.
+
+    ``executor`` runs the jobs (:mod:`cellbuild.executors`; default: a local
+    pool of ``workers`` processes, every core if None). It is asked first
+    whether all its workers can see ``out``.
 
     Raises :class:`InputError` before anything is built if ``source_dir`` is
     not a folder holding recipes, is not inside ``out``'s parent folder (the
@@ -191,8 +217,10 @@ def build_library(source_dir: str | os.PathLike, out: str | os.PathLike, *,
     if not source_dir.is_dir():
         raise InputError("is not a folder", key="DIR", value=str(source_dir),
                          hint="give the folder that holds the recipes")
-    if workers is not None and workers < 1:
-        raise InputError("must be at least 1", key="--workers", value=workers)
+    if executor is None:
+        from .executors import LocalPool
+
+        executor = LocalPool(workers)
     sources = discover(source_dir, out, skip=out)
     if not sources:
         raise InputError("holds no *.yaml or *.yml recipe files", key="DIR",
@@ -202,6 +230,7 @@ def build_library(source_dir: str | os.PathLike, out: str | os.PathLike, *,
     _check_source_placement(source_dir, out)
     manifest_path = out / MANIFEST_NAME
     _check_manifest_target(manifest_path, out)
+    executor.check_shared(out, "--out")  # before anything is created in OUT
     ensure_output_dir(out)
     previous = previous_outputs(manifest_path)
     jobs, failed = plan_jobs(sources, out)
@@ -213,12 +242,16 @@ def build_library(source_dir: str | os.PathLike, out: str | os.PathLike, *,
         if on_done:
             on_done(outcome)
     with sigterm_as_interrupt():
-        built = run_jobs(jobs, workers or default_workers(), on_done)
+        built = executor.run(jobs, on_done)
+    # every job is done: a temporary still here was left by a worker that died
+    # mid-write (its structure was built again by another one)
+    lost = remove_temporaries(out, TEMPORARY_TARGETS)
     outcomes = sort_outcomes(failed + built)
     manifest = make_manifest(outcomes, source=_relative(source_dir, out))
     removed = remove_stale(out, previous, manifest)
     write_manifest(manifest_path, manifest)
-    return BatchResult(outcomes, manifest, manifest_path, removed, temporaries)
+    return BatchResult(outcomes, manifest, manifest_path, removed, temporaries, lost,
+                       executor.description, executor.kind)
 
 
 def _check_source_placement(source_dir: Path, out: Path) -> None:

@@ -26,6 +26,9 @@ app = typer.Typer(
 )
 
 EXIT_OK, EXIT_FAILED_CHECK, EXIT_BAD_INPUT, EXIT_BUG = 0, 1, 2, 3
+
+SCHEDULER_HELP = ("Run on Dask: tcp://HOST:PORT or a scheduler file of a running cluster, or "
+                  "`local` for a local Dask cluster (needs the `cluster` extra).")
 #: 128 + the signal number, as a shell reports a process ended by that signal.
 EXIT_INTERRUPTED, EXIT_BROKEN_PIPE, EXIT_TERMINATED = 130, 141, 143
 
@@ -192,6 +195,7 @@ def batch(
                                            help="Also gather every structure into one multi-frame extended XYZ file."),
     db: Optional[str] = typer.Option(None, "--db", metavar="DB",
                                      help="Also write every structure into an ASE database (NAME.db or a URL)."),
+    scheduler: Optional[str] = typer.Option(None, "--scheduler", metavar="ADDRESS", help=SCHEDULER_HELP),
 ) -> None:
     """Build every recipe under DIR (every sweep point) in parallel into OUT.
 
@@ -215,8 +219,11 @@ def batch(
                 from .training_sets import check_targets
 
                 check_targets(collect, db)
-            result = build_library(source, out, workers=workers, on_done=on_done,
-                                   on_planned=bar.planned if bar else None)
+            from .executors import open_executor
+
+            with open_executor(scheduler, workers) as executor:
+                result = build_library(source, out, executor=executor, on_done=on_done,
+                                       on_planned=bar.planned if bar else None)
             if junit is not None:
                 write_junit(junit, result.outcomes)
     finally:
@@ -243,6 +250,10 @@ def verify(
                                           help="Worker processes (default: all cores)."),
     db: Optional[str] = typer.Option(None, "--db", metavar="DB",
                                      help="Also check the ASE database rows against the manifest."),
+    scheduler: Optional[str] = typer.Option(None, "--scheduler", metavar="ADDRESS", help=SCHEDULER_HELP),
+    scratch: Optional[Path] = typer.Option(None, "--scratch", metavar="DIR",
+                                           help="Folder for the rebuild (default: TMPDIR); on a "
+                                                "cluster, one every worker sees."),
 ) -> None:
     """Rebuild every manifest entry in a temporary folder and compare bytes.
 
@@ -257,9 +268,12 @@ def verify(
     try:
         with _bad_input_exits():
             workers = _positive_workers(workers)
-            result = verify_manifest(manifest, workers=workers,
-                                     on_planned=bar.planned if bar else None,
-                                     on_done=bar.update if bar else None)
+            from .executors import open_executor
+
+            with open_executor(scheduler, workers) as executor:
+                result = verify_manifest(manifest, executor=executor, scratch=scratch,
+                                         on_planned=bar.planned if bar else None,
+                                         on_done=bar.update if bar else None)
     finally:
         if bar:
             bar.close()

@@ -105,6 +105,13 @@ def batch_summary(result, show_problems: bool) -> None:
     if result.temporaries:
         typer.echo(f"removed {len(result.temporaries)} temporary file(s) left by an "
                    "interrupted run")
+    if result.lost:
+        typer.echo(f"removed {len(result.lost)} temporary file(s) left by workers that "
+                   "stopped mid-write (their structures were built again)")
+    counts = result.per_worker()
+    if counts and (len(counts) > 1 or result.executor_kind == "dask"):
+        typer.echo(f"built on {result.executor}: " + ", ".join(
+            f"{worker} {n}" for worker, n in counts.items()))
     typer.echo(f"{len(statuses)} structure(s): {statuses.count('passed')} passed, "
                f"{statuses.count('failed')} failed checks, {statuses.count('error')} "
                f"could not be built; manifest {result.manifest_path}")

@@ -74,6 +74,8 @@ class Outcome:
     display_error: str | None = None
     write_problem: str | None = None
     seconds: float = 0.0
+    #: who built it (a Dask worker's address, or ``process PID``); never in the manifest
+    worker: str = field(default="", compare=False)
 
     @property
     def status(self) -> str:

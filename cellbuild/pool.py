@@ -18,6 +18,7 @@ import math
 import os
 import signal
 import time
+from dataclasses import replace
 from pathlib import Path
 from typing import Callable, Iterator, Sequence
 
@@ -145,6 +146,18 @@ def crashed(job: Job, exc: BaseException) -> Outcome:
     return error_outcome(job.name, job.source, job.recipe_sha256, error, job.sweep)
 
 
+def chunked(jobs: Sequence[Job], workers: int) -> list[list[Job]]:
+    """Jobs in chunks: about four per worker, at most :data:`MAX_CHUNK` jobs each,
+    so the per-call overhead is small and the last chunks still spread out."""
+    size = max(1, min(MAX_CHUNK, math.ceil(len(jobs) / (4 * max(1, workers)))))
+    return [list(jobs[i:i + size]) for i in range(0, len(jobs), size)]
+
+
+def build_labelled(job: Job) -> Outcome:
+    """:func:`build_job`, the outcome labelled with this process (for the summary's counts)."""
+    return replace(build_job(job), worker=f"process {os.getpid()}")
+
+
 def build_chunk(jobs: list[Job]) -> list[Outcome]:
     """Build several structures in one worker call (fewer round trips between processes).
 
@@ -153,7 +166,7 @@ def build_chunk(jobs: list[Job]) -> list[Outcome]:
     taking the next chunk, which the pool would otherwise hand it.
     """
     try:
-        return [build_job(job) for job in jobs]
+        return [build_labelled(job) for job in jobs]
     except (Terminated, KeyboardInterrupt):
         os._exit(128 + signal.SIGTERM)
 
@@ -225,14 +238,13 @@ def run_jobs(jobs: Sequence[Job], workers: int,
     if workers <= 1 or len(jobs) <= 1:
         outcomes = []
         for job in jobs:
-            outcomes.append(build_job(job))
+            outcomes.append(build_labelled(job))
             note(outcomes[-1])
         return outcomes
     import multiprocessing
     from concurrent.futures import ProcessPoolExecutor, as_completed
 
-    size = max(1, min(MAX_CHUNK, math.ceil(len(jobs) / (4 * workers))))
-    chunks = [list(jobs[i:i + size]) for i in range(0, len(jobs), size)]
+    chunks = chunked(jobs, workers)
     outcomes = []
     pool = ProcessPoolExecutor(max_workers=min(workers, len(chunks)),
                                mp_context=multiprocessing.get_context("spawn"),

@@ -28,7 +28,7 @@ import os
 import tempfile
 from dataclasses import dataclass
 from pathlib import Path
-from typing import Callable
+from typing import TYPE_CHECKING, Callable
 
 from . import __version__
 from .batch import TEMPORARY_TARGETS, discover, make_source, plan_jobs
@@ -36,7 +36,10 @@ from .errors import InputError
 from .manifest import (MANIFEST_NAME, OUTPUT_SUFFIXES, LibraryPaths, library_paths,
                        listed_paths, read_manifest)
 from .outcomes import Outcome, Source, sort_outcomes
-from .pool import run_jobs, sigterm_as_interrupt
+from .pool import sigterm_as_interrupt
+
+if TYPE_CHECKING:
+    from .executors import Executor
 
 
 @dataclass(frozen=True)
@@ -75,16 +78,24 @@ class VerifyResult:
 
 
 def verify(manifest_path: str | os.PathLike, *, workers: int | None = None,
+           executor: "Executor | None" = None, scratch: str | os.PathLike | None = None,
            on_planned: Callable[[int], None] | None = None,
            on_done: Callable[[Outcome], None] | None = None) -> VerifyResult:
     """Rebuild every entry of the manifest in a temporary folder and compare.
 
-    Raises :class:`InputError` for a missing, malformed or unsafe manifest and
-    for a scratch folder that cannot take the rebuild; every other problem is
-    a :class:`Difference` in the result.
-    """
-    from .pool import default_workers
+    The temporary folder is made in ``scratch`` (default: ``TMPDIR`` or the
+    system's temporary folder); with a Dask cluster it must be a folder every
+    worker sees. ``executor`` runs the rebuild (:mod:`cellbuild.executors`;
+    default: a local pool of ``workers`` processes).
 
+    Raises :class:`InputError` for a missing, malformed or unsafe manifest and
+    for a scratch folder that cannot take the rebuild (or that a worker cannot
+    see); every other problem is a :class:`Difference` in the result.
+    """
+    if executor is None:
+        from .executors import LocalPool
+
+        executor = LocalPool(workers)
     manifest_path = Path(manifest_path)
     if manifest_path.is_dir():
         manifest_path = manifest_path / MANIFEST_NAME
@@ -101,20 +112,25 @@ def verify(manifest_path: str | os.PathLike, *, workers: int | None = None,
     diffs += _check_extra(root, manifest)
     sources, recipe_diffs = _recipe_sources(root, paths, manifest)
     diffs += recipe_diffs
-    scratch = _scratch_root()
-    _check_scratch_space(scratch, entries)
+    scratch, key = (_scratch_root(), "TMPDIR") if scratch is None else (str(scratch), "--scratch")
+    if not os.path.isdir(scratch):
+        raise InputError("is not a folder", key=key, value=scratch,
+                         hint="give an existing folder for the rebuild")
+    _check_scratch_space(scratch, entries, key)
     try:
         tmp_dir = tempfile.TemporaryDirectory(prefix="cellbuild-verify-", dir=scratch)
     except OSError as exc:
-        raise _scratch_error(scratch, exc.strerror or str(exc)) from None
+        raise _scratch_error(scratch, exc.strerror or str(exc), key) from None
     with tmp_dir as tmp, sigterm_as_interrupt():
         jobs, failed = plan_jobs(sources, Path(tmp))
+        if jobs:
+            executor.check_shared(Path(tmp), key)
         if on_planned:
             on_planned(len(jobs) + len(failed))
-        rebuilt = failed + run_jobs(jobs, workers or default_workers(), on_done)
+        rebuilt = failed + executor.run(jobs, on_done)
         trouble = next((o.write_problem for o in rebuilt if o.write_problem), None)
         if trouble is not None:
-            raise _scratch_error(scratch, trouble)
+            raise _scratch_error(scratch, trouble, key)
         diffs += _compare(root, Path(tmp), entries, sort_outcomes(rebuilt))
     diffs.sort(key=lambda d: d.entry)  # stable: groups each entry's lines, in check order
     return VerifyResult(diffs, len(entries))
@@ -134,13 +150,14 @@ def _scratch_root() -> str:
                          hint="set TMPDIR to a writable folder with room") from exc
 
 
-def _scratch_error(scratch: str, why: str) -> InputError:
+def _scratch_error(scratch: str, why: str, key: str = "TMPDIR") -> InputError:
+    where = "set TMPDIR to" if key == "TMPDIR" else "give --scratch"
     return InputError(f"cannot take the rebuild ({why}); this is a problem of that folder, "
-                      "not of the library", key="TMPDIR", value=scratch,
-                      hint="free space there or set TMPDIR to a writable folder with room")
+                      "not of the library", key=key, value=scratch,
+                      hint=f"free space there or {where} a writable folder with room")
 
 
-def _check_scratch_space(scratch: str, entries: list[dict]) -> None:
+def _check_scratch_space(scratch: str, entries: list[dict], key: str = "TMPDIR") -> None:
     """Refuse before rebuilding when the scratch folder cannot hold the files again."""
     import shutil
 
@@ -151,7 +168,7 @@ def _check_scratch_space(scratch: str, entries: list[dict]) -> None:
         return  # the rebuild will tell
     if needed > free:
         raise _scratch_error(scratch, f"the rebuild needs about {needed / 2**20:,.1f} MB, "
-                                      f"{free / 2**20:,.1f} MB are free")
+                                      f"{free / 2**20:,.1f} MB are free", key)
 
 
 def _check_disk(root: Path, entries: list[dict]) -> list[Difference]:
