@@ -26,11 +26,11 @@ app = typer.Typer(
 )
 
 EXIT_OK, EXIT_FAILED_CHECK, EXIT_BAD_INPUT, EXIT_BUG = 0, 1, 2, 3
+#: 128 + the signal number, as a shell reports a process ended by that signal.
+EXIT_INTERRUPTED, EXIT_BROKEN_PIPE, EXIT_TERMINATED = 130, 141, 143
 
 SCHEDULER_HELP = ("Run on Dask: tcp://HOST:PORT or a scheduler file of a running cluster, or "
                   "`local` for a local Dask cluster (needs the `cluster` extra).")
-#: 128 + the signal number, as a shell reports a process ended by that signal.
-EXIT_INTERRUPTED, EXIT_BROKEN_PIPE, EXIT_TERMINATED = 130, 141, 143
 
 
 class _State:
