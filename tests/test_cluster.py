@@ -203,3 +203,21 @@ def test_a_worker_that_cannot_see_out_is_refused_before_building(tmp_path):
         worker.wait(30)
         client.close()
         cluster.close()
+
+
+def test_cli_batch_and_verify_on_a_local_cluster(library):
+    """The commands as the README gives them: `--scheduler local` for batch and verify."""
+    lib, local = library
+    command = [sys.executable, "-m", "cellbuild.cli"]
+    run = subprocess.run(command + ["batch", str(lib), "--out", str(lib / "out-cli"),
+                                    "--scheduler", "local", "--workers", "2"],
+                         capture_output=True, text=True, timeout=300)
+    assert run.returncode == 0, run.stderr
+    assert "built on a local Dask cluster of 2 worker(s): tcp://127.0.0.1:" in run.stdout
+    assert manifest_without_created(lib / "out-cli") == manifest_without_created(local)
+    run = subprocess.run(command + ["verify", str(lib / "out-cli" / "manifest.json"),
+                                    "--scheduler", "local", "--workers", "2",
+                                    "--scratch", str(lib.parent)],
+                         capture_output=True, text=True, timeout=300)
+    assert run.returncode == 0, run.stdout + run.stderr
+    assert "verified: all 18 structure(s) match the manifest" in run.stdout
