@@ -30,8 +30,11 @@ SECONDS = 8.0      # what any refusal may take inside the command (imports exclu
                    # because CI shares 2 cores; today about 0.5 s on a quiet machine)
 
 _RUN = """\
-import sys, time
+import os, sys, time
 from cellbuild.cli import main
+if os.environ.get("CELLBUILD_TEST_YAML") == "pure":
+    import cellbuild.yamlread
+    cellbuild.yamlread.has_libyaml = lambda: False
 start = time.perf_counter()
 try:
     main(sys.argv[1:])
@@ -44,13 +47,27 @@ sys.exit(code)
 HEADER = "name: x\ncrystal: {element: Cu, lattice: fcc, a: 3.615}\nsize: {repeat: 2}\n"
 
 
+@pytest.fixture(autouse=True, params=["libyaml", "pure"])
+def yaml_loader(request, monkeypatch):
+    """Every case with libyaml's parser (when PyYAML has it) and with the pure-Python
+    one, in this process and in the `plan` subprocesses."""
+    from cellbuild import yamlread
+
+    if request.param == "libyaml" and not yamlread.has_libyaml():
+        pytest.skip("PyYAML without libyaml")
+    if request.param == "pure":
+        monkeypatch.setattr(yamlread, "has_libyaml", lambda: False)
+    monkeypatch.setenv("CELLBUILD_TEST_YAML", request.param)
+    return request.param
+
+
 def _limit_memory():
     resource.setrlimit(resource.RLIMIT_AS, (MEMORY, MEMORY))
 
 
 def plan(path) -> tuple[int, str, float]:
     """`cellbuild plan PATH` in a bounded subprocess: (exit code, output, seconds in the command)."""
-    env = dict(os.environ, OPENBLAS_NUM_THREADS="1", OMP_NUM_THREADS="1")
+    env = dict(os.environ, OPENBLAS_NUM_THREADS="1", OMP_NUM_THREADS="1")  # + CELLBUILD_TEST_YAML
     done = subprocess.run([sys.executable, "-c", _RUN, "plan", str(path)], capture_output=True,
                           text=True, timeout=TIMEOUT, preexec_fn=_limit_memory, env=env)
     output, _, elapsed = (done.stdout + done.stderr).rpartition("\nELAPSED ")

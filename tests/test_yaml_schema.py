@@ -27,6 +27,19 @@ README = Path(__file__).resolve().parent.parent / "README.md"
 BASE = "name: x\ncrystal: {element: Cu, lattice: fcc, a: 3.615}\nsize: {repeat: 2}\n"
 
 
+@pytest.fixture(autouse=True, params=["libyaml", "pure"])
+def yaml_loader(request, monkeypatch):
+    """Every case with libyaml's parser (when PyYAML has it) and with PyYAML's
+    pure-Python one; tests/test_yaml_loaders.py compares the two directly."""
+    from cellbuild import yamlread
+
+    if request.param == "libyaml" and not yamlread.has_libyaml():
+        pytest.skip("PyYAML without libyaml")
+    if request.param == "pure":
+        monkeypatch.setattr(yamlread, "has_libyaml", lambda: False)
+    return request.param
+
+
 def _value(text: str):
     data, _ = parse_yaml(f"v: {text}\n")
     return data["v"]
