@@ -64,15 +64,27 @@ def expected_coordination(structure: Structure, crystal: Crystal,
     """
     n_grid = crystal.n_grid
     shape = (*repeat, n_grid)
-    occupied = np.zeros(math.prod(shape), dtype=bool)
-    occupied[structure.site] = True
+    occupied = np.zeros(math.prod(shape), dtype=np.uint8)
+    occupied[structure.site] = 1
     occupied = occupied.reshape(shape)
     present = occupied.reshape(-1, n_grid).any(axis=0)
+    used = [(s, d, t) for s, d, t in crystal.offsets if present[s] and present[t]]
     expected = np.zeros(shape, dtype=np.int16)
-    for s, (di, dj, dk), t in crystal.offsets:
-        if present[s] and present[t]:
-            # expected[i, j, k, s] += occupied[i + di, j + dj, k + dk, t]
-            expected[..., s] += np.roll(occupied[..., t], (-di, -dj, -dk), axis=(0, 1, 2))
+    if used:
+        # expected[i, j, k, s] += occupied[i + di, j + dj, k + dk, t] (periodic): each
+        # sublattice grid t is padded around once, so a shift is a strided view and
+        # no grid-sized array is allocated per offset (np.roll made one each)
+        reach = np.abs(np.array([d for _, d, _ in used])).max(axis=0)
+        n1, n2, n3 = repeat
+        padded = {t: np.pad(occupied[..., t], [(r, r) for r in reach.tolist()], mode="wrap")
+                  for t in dict.fromkeys(t for _, _, t in used)}
+        total = np.empty(repeat, dtype=np.int16)
+        for s in dict.fromkeys(s for s, _, _ in used):
+            total.fill(0)
+            for _, (di, dj, dk), t in (o for o in used if o[0] == s):
+                a, b, c = reach[0] + di, reach[1] + dj, reach[2] + dk
+                total += padded[t][a:a + n1, b:b + n2, c:c + n3]
+            expected[..., s] = total
     return expected.reshape(-1)[structure.site].astype(np.int32)
 
 
@@ -259,20 +271,35 @@ def _atoms_per_cell_check(plan: Plan, structure: Structure, placements) -> Check
     the placements) are left out.
     """
     crystal = plan.crystal
-    lattice_atoms = structure.positions[structure.site % crystal.n_grid < crystal.n_basis]
+    lattice_atoms = np.flatnonzero(structure.site % crystal.n_grid < crystal.n_basis)
     vacant = np.concatenate([p.site_ids for p in placements if p.kind == "vacancy"] or
                             [np.empty(0, np.int64)])
-    points = np.concatenate([lattice_atoms, site_positions(crystal, plan.repeat, vacant)])
-    idx = np.floor(crystal.to_fractional(points) + 1e-9).astype(np.int64) % np.array(plan.repeat)
-    n1, n2, n3 = plan.repeat
-    cell = (idx[:, 0] * n2 + idx[:, 1]) * n3 + idx[:, 2]
-    per_cell = np.bincount(cell, minlength=plan.n_cells)
+    cells = np.empty(len(lattice_atoms) + len(vacant), dtype=np.int64)
+    # in chunks that stay in cache, without a copy of all the positions
+    for start in range(0, len(lattice_atoms), _CHUNK_ATOMS):
+        rows = lattice_atoms[start:start + _CHUNK_ATOMS]
+        cells[start:start + len(rows)] = _cell_of(crystal, plan.repeat, structure.positions[rows])
+    cells[len(lattice_atoms):] = _cell_of(crystal, plan.repeat,
+                                          site_positions(crystal, plan.repeat, vacant))
+    per_cell = np.bincount(cells, minlength=plan.n_cells)
     z = crystal.n_basis
     unit = "conventional cell" if crystal.parent is None else "repeat unit"
     low, high = int(per_cell.min()), int(per_cell.max())
     return Check("atoms_per_cell", low == high == z,
                  f"{low}..{high} lattice sites per {unit} from coordinates "
                  f"(vacant sites counted); the basis has {z}")
+
+
+#: Atoms handled per chunk by the audit's per-atom passes (positions of this many
+#: atoms, 6 MB, stay in cache between the steps of a pass).
+_CHUNK_ATOMS = 1 << 18
+
+
+def _cell_of(crystal: Crystal, repeat: tuple[int, int, int], points: np.ndarray) -> np.ndarray:
+    """Conventional cell (numbered as the sites are) of each point (Cartesian, Angstrom)."""
+    idx = np.floor(crystal.to_fractional(points) + 1e-9).astype(np.int64) % np.array(repeat)
+    n1, n2, n3 = repeat
+    return (idx[:, 0] * n2 + idx[:, 1]) * n3 + idx[:, 2]
 
 
 def _composition_check(plan: Plan, composition: dict[str, int], placements) -> Check:
@@ -329,8 +356,8 @@ def _sublattice_check(plan: Plan, structure: Structure, placements) -> tuple[dic
 
 def _periodic_offset(cell: np.ndarray, delta: np.ndarray) -> float:
     """Largest length (Angstrom) of ``delta`` vectors taken modulo the cell."""
-    if not len(delta):
-        return 0.0
+    if not len(delta) or not delta.any():
+        return 0.0  # every atom exactly on its site (a fresh build): no product needed
     frac = delta @ np.linalg.inv(cell)
     frac -= np.round(frac)
     return float(np.sqrt(np.max(np.einsum("ij,ij->i", frac @ cell, frac @ cell))))

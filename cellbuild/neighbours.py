@@ -61,7 +61,7 @@ from .cell_list import (MAX_COUNTED_PAIRS, MAX_LISTED_PAIRS, PairLimitError, _bu
 from .cellgeom import (_checked_cell, _checked_positions, _checked_radius, _thread_count,
                        _wrapped_fractional, perpendicular_widths)
 from .neighbour_grid import (MAX_GRID_OFFSETS, MAX_GRID_SITES, GridSites,
-                             _count_occupied_offsets, _find_grid_sites, _grid_min_distance,
+                             _count_occupied_offsets, _grid_min_distance,
                              _grid_offsets, _grid_sites, locate_grid)
 
 __all__ = ["GridSites", "MAX_COUNTED_PAIRS", "MAX_GRID_OFFSETS", "MAX_GRID_SITES",
@@ -148,21 +148,24 @@ def grid_counts(cell, positions, cutoff, grid=None, tol=1e-6,
     if len(positions) == 0:
         return np.zeros(0, dtype=np.int32)
     # Relative to the first atom: a rigidly shifted crystal qualifies too.
+    if sites is None and grid is None:
+        sites = locate_grid(cell, positions, tol)  # in chunks: no full fractional copy
+        if sites is None:
+            return None
     if sites is not None:
-        located = (sites.grid, sites.flat)
-    elif grid is None:
-        frac = _wrapped_fractional(cell, positions - positions[0])
-        located = _find_grid_sites(cell, frac, tol)
-    else:
-        frac = _wrapped_fractional(cell, positions - positions[0])
-        grid = np.asarray(grid, dtype=np.int64).reshape(3)
-        if np.any(grid < 1):
-            raise ValueError(f"grid divisions must be >= 1, got {tuple(grid)}")
-        flat = _grid_sites(cell, frac, grid, tol)
-        located = None if flat is None else (grid, flat)
-    if located is None:
+        if sites.shared:
+            return None  # two atoms on one site
+        offsets = _grid_offsets(cell, sites.grid, cutoff)
+        if offsets is None:
+            return None
+        return _count_occupied_offsets(sites.occupancy, sites.grid, offsets, sites.flat)
+    frac = _wrapped_fractional(cell, positions - positions[0])
+    grid = np.asarray(grid, dtype=np.int64).reshape(3)
+    if np.any(grid < 1):
+        raise ValueError(f"grid divisions must be >= 1, got {tuple(grid)}")
+    flat = _grid_sites(cell, frac, grid, tol)
+    if flat is None:
         return None
-    grid, flat = located
     occupancy = np.bincount(flat, minlength=int(np.prod(grid)))
     if occupancy.max() > 1:
         return None  # two atoms on one site

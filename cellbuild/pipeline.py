@@ -157,41 +157,112 @@ def make(recipe: Recipe, out_dir: str | os.PathLike, *, force: bool = False,
     built = build(recipe, strict=strict, progress=note)
     check_disk_space(built.plan, out_dir)
     ensure_output_dir(out_dir)
-    note("audit")
-    try:
-        result_audit = audit(built.plan, built.ideal or built.structure, built.placements,
-                             workers=workers)
-        if built.ideal is not None:
-            result_audit = with_distortion(result_audit, built.plan, built.ideal,
-                                           built.structure, workers)
-    except PairLimitError as exc:  # a size limit of the checks, found before any file is written
-        recipe = built.plan.recipe
-        raise InputError(f"gives {built.structure.n_atoms:,} atoms, too many for the audit's "
-                         f"neighbour search ({exc})", key=f"size.{size_key(recipe)}",
-                         value=size_value(recipe), hint="choose a smaller size",
-                         file=recipe.source) from None
     report_path = Path(out_dir) / f"{recipe.name}.report.json"
     # all files appear together or none do; without force, every name is claimed
     # exclusively, so a second run racing for the same names refuses instead of replacing
     options = WriteOptions(recipe.kpoints, recipe.espresso, built.free)
     with StagedFiles(replace=force, root=out_dir) as staged:
-        outputs = {}
-        for key in recipe.outputs:
-            note(key)
-            outputs[key] = write_structure(built.structure, key,
-                                           output_path(out_dir, recipe.name, key),
-                                           title=recipe.name, staged=staged, options=options)
-        if _writes_groups(recipe):
-            staged.write_bytes(Path(out_dir) / f"{recipe.name}{GROUPS_EXTENSION}",
-                               groups_text(built.free).encode("ascii"))
-        if built.placements:
-            staged.write_bytes(Path(out_dir) / f"{recipe.name}.defects.json",
-                               _json_bytes(defect_sites(built), indent=None))
+        # The structure files do not depend on the audit: a large structure's are
+        # formatted and written in a second thread while the audit runs (numpy
+        # releases the GIL in both). A failed audit leaves the with-block after
+        # the writer has finished, so the rollback removes everything it staged.
+        writer = _Background(_write_files, built, out_dir, staged, options, note,
+                             run_here=built.structure.n_atoms < _BACKGROUND_WRITE_ATOMS)
+        with writer:
+            note("audit")
+            result_audit = _audited(built, workers)
+            outputs = writer.result()
         report = make_report(built, result_audit, outputs, out_dir,
                              recipe_sha256 or recipe_hash(recipe))
         staged.write_bytes(report_path, _json_bytes(report))
         staged.commit()
     return Result(built, result_audit, report, outputs, report_path)
+
+
+#: Atoms from which :func:`make` writes the structure files in a second thread
+#: while the audit runs; below it a thread's start-up and switching outweigh the
+#: overlap (a small structure is audited and written in milliseconds).
+_BACKGROUND_WRITE_ATOMS = 20_000
+
+
+def _audited(built: Built, workers: int) -> Audit:
+    """The audit of a built structure (with the distortion's checks, if any).
+
+    A size limit of the neighbour search becomes an :class:`InputError`, raised
+    before any file is committed."""
+    try:
+        result = audit(built.plan, built.ideal or built.structure, built.placements,
+                       workers=workers)
+        if built.ideal is not None:
+            result = with_distortion(result, built.plan, built.ideal, built.structure, workers)
+        return result
+    except PairLimitError as exc:
+        recipe = built.plan.recipe
+        raise InputError(f"gives {built.structure.n_atoms:,} atoms, too many for the audit's "
+                         f"neighbour search ({exc})", key=f"size.{size_key(recipe)}",
+                         value=size_value(recipe), hint="choose a smaller size",
+                         file=recipe.source) from None
+
+
+def _write_files(built: Built, out_dir, staged: StagedFiles, options: WriteOptions,
+                 note: Progress) -> dict[str, WrittenFile]:
+    """Stage every file of ``built`` that does not depend on the audit: the
+    structure files, the LAMMPS groups and ``NAME.defects.json``."""
+    recipe = built.plan.recipe
+    outputs = {}
+    for key in recipe.outputs:
+        note(key)
+        outputs[key] = write_structure(built.structure, key,
+                                       output_path(out_dir, recipe.name, key),
+                                       title=recipe.name, staged=staged, options=options)
+    if _writes_groups(recipe):
+        staged.write_bytes(Path(out_dir) / f"{recipe.name}{GROUPS_EXTENSION}",
+                           groups_text(built.free).encode("ascii"))
+    if built.placements:
+        staged.write_bytes(Path(out_dir) / f"{recipe.name}.defects.json",
+                           _json_bytes(defect_sites(built), indent=None))
+    return outputs
+
+
+class _Background:
+    """``function(*args)`` in a thread started on entering the with-block (or,
+    with ``run_here``, called in this thread at :meth:`result`); leaving the
+    block always waits for the thread, so nothing it does outlives the block.
+    :meth:`result` returns the value or raises the thread's exception."""
+
+    def __init__(self, function, *args, run_here: bool = False):
+        self._call = (function, args)
+        self._run_here = run_here
+        self._thread = None
+        self._value = self._error = None
+
+    def _run(self) -> None:
+        function, args = self._call
+        try:
+            self._value = function(*args)
+        except BaseException as exc:  # handed to the caller by result()
+            self._error = exc
+
+    def __enter__(self) -> "_Background":
+        if not self._run_here:
+            import threading
+
+            self._thread = threading.Thread(target=self._run, name="cellbuild-writer")
+            self._thread.start()
+        return self
+
+    def __exit__(self, *exc) -> None:
+        if self._thread is not None:
+            self._thread.join()
+
+    def result(self):
+        if self._thread is None:
+            self._run()
+        else:
+            self._thread.join()
+        if self._error is not None:
+            raise self._error
+        return self._value
 
 
 def make_file(path: str | os.PathLike, out_dir: str | os.PathLike, **kwargs) -> Result:
