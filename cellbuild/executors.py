@@ -126,13 +126,21 @@ def build_chunk_on_worker(jobs: list[Job], marker: str, token: str) -> list[Outc
     """
     from distributed import get_worker
 
-    from .pool import build_job, crashed
+    from .outcomes import error_outcome
+    from .pool import build_job
 
     address = get_worker().address
     if not sees_marker(marker, token):
-        problem = RuntimeError(f"the worker at {address} cannot see the folder of "
-                               f"{os.path.dirname(marker)}")
-        return [replace(crashed(job, problem), worker=address) for job in jobs]
+        why = f"the Dask worker at {address} cannot see it"
+        outcomes = []
+        for job in jobs:
+            error = InputError(f"is not visible to the worker that took this structure "
+                               f"({why})", key="--out", value=job.out_dir,
+                               hint="put it on a filesystem every worker mounts at the same path",
+                               file=job.source.recipe)
+            outcomes.append(error_outcome(job.name, job.source, job.recipe_sha256, error,
+                                          job.sweep, write_problem=why))
+        return [replace(outcome, worker=address) for outcome in outcomes]
     return [replace(build_job(job), worker=address) for job in jobs]
 
 

@@ -221,3 +221,28 @@ def test_cli_batch_and_verify_on_a_local_cluster(library):
                          capture_output=True, text=True, timeout=300)
     assert run.returncode == 0, run.stdout + run.stderr
     assert "verified: all 18 structure(s) match the manifest" in run.stdout
+
+
+def test_a_late_worker_that_cannot_see_out_builds_nothing(client, tmp_path):
+    """A task that lands on a worker without the marker records errors and writes nothing
+    (the marker is made unreadable here, as on a worker that joined without the share)."""
+    from cellbuild.executors import build_chunk_on_worker
+    from cellbuild.batch import discover, plan_jobs
+
+    (tmp_path / "lib").mkdir()
+    shutil.copy(REPO / "recipes" / "al-host-perfect.yaml", tmp_path / "lib")
+    jobs, failed = plan_jobs(discover(tmp_path / "lib", tmp_path / "lib"), tmp_path / "out")
+    assert jobs and not failed
+    marker = str(tmp_path / ".cellbuild-shared-missing")  # never written
+    outcomes = client.submit(build_chunk_on_worker, jobs, marker, "token", pure=False).result()
+    assert [o.status for o in outcomes] == ["error"]
+    assert "cannot see it" in outcomes[0].error and outcomes[0].write_problem
+    assert outcomes[0].worker.startswith("tcp://127.0.0.1:")
+    assert not (tmp_path / "out").exists()
+
+
+def test_scheduler_without_the_extra_names_the_extra(monkeypatch):
+    monkeypatch.setitem(sys.modules, "distributed", None)  # as if not installed
+    with pytest.raises(InputError, match=r"\[cluster\]"):
+        with open_executor("local", workers=1):
+            pass
