@@ -1,11 +1,13 @@
 """Reading LAMMPS data files (atom styles ``atomic`` and ``charge``; units metal, Angstrom).
 
 Holds the LAMMPS data header parser (counts, box bounds and tilts, masses, atom
-style; the atom rows are skipped, not parsed) and its checks, the element of an
-atom type from its mass (:func:`element_of_mass`), and the numpy fast row reader:
-:func:`line_starts` and :func:`load_rows`, which the extended XYZ fast path of
-:mod:`cellbuild.readers` shares, and :func:`fast_lammps`, which reads the atom
-rows into a :class:`Structure`. Every failure is an
+style; the atom rows are jumped over by byte offsets, not parsed) and its
+checks, the element of an atom type from its mass (:func:`element_of_mass`),
+and the numpy fast row reader: :func:`skip_lines` and :func:`load_rows` (the
+block of rows found by byte offsets, one ``numpy.loadtxt`` call), which the
+extended XYZ fast path of :mod:`cellbuild.readers` shares, and
+:func:`fast_lammps`, which reads the atom rows into a :class:`Structure`.
+The file is read once, as bytes, and shared by the header parser and the rows. Every failure is an
 :class:`~cellbuild.errors.InputError` naming the file and, where known, the line.
 """
 from __future__ import annotations
@@ -30,6 +32,8 @@ MASS_TOLERANCE = 0.05
 _LAMMPS_STYLES = {"atomic": 5, "charge": 6}
 #: Section names of a LAMMPS data file (the ones that can hold atoms' lines).
 _LAMMPS_SECTIONS = ("Atoms", "Velocities", "Masses", "Atom Type Labels")
+#: A section keyword line (comment removed, stripped).
+_SECTION = re.compile(r"[A-Z][A-Za-z ]+")
 
 
 # ----------------------------------------------------------------------------- header
@@ -45,46 +49,63 @@ class LammpsHeader:
     masses: dict = field(default_factory=dict)  # type -> (mass, line)
     style: str = "atomic"
     atoms_line: int = 0  # 1-based line of the "Atoms" keyword
+    atoms_offset: int | None = None  # byte offset of the line after it (None: CR line ends)
     general_box: bool = False
 
 
-def lammps_header(path: Path) -> LammpsHeader:
-    """Counts, box, masses and atom style; the atom rows are skipped, not parsed."""
-    from itertools import islice
+def lammps_header(path: Path, data: bytes | None = None) -> LammpsHeader:
+    """Counts, box, masses and atom style; the atom rows are skipped, not parsed.
 
+    ``data`` is the file's bytes when the caller has read them already. Lines
+    are split as Python's text mode does (``\\r\\n`` and a lone ``\\r`` end a
+    line too); the rows of the Atoms and Velocities sections are jumped over
+    by byte offsets (:func:`skip_lines`), not read one Python line at a time.
+    """
+    if data is None:
+        data = path.read_bytes()
+    crlf = b"\r" in data
+    text = data.replace(b"\r\n", b"\n").replace(b"\r", b"\n") if crlf else data
     head = LammpsHeader()
     style_comment, first_row, section = None, None, None
-    with open(path, encoding="utf-8", errors="replace") as handle:
-        lines = enumerate(handle, start=1)
-        next(lines, None)  # the first line is a title
-        for number, raw in lines:
-            text, _, comment = raw.partition("#")
-            text = text.strip()
-            if not text:
-                continue
-            if section in ("after Atoms", "after Velocities") and not re.fullmatch(
-                    r"[A-Z][A-Za-z ]+", text):
-                what = section.split()[1]
-                raise InputError(f"has more {what} rows than the {head.n_atoms:,} atoms its "
-                                 f"header declares (LAMMPS refuses such a file)",
-                                 file=str(path), line=number)
-            if text in _LAMMPS_SECTIONS or re.fullmatch(r"[A-Z][A-Za-z ]+", text):
-                section = text
-                if section == "Atoms":
-                    head.atoms_line = number
-                    style_comment = comment.strip() or None
-                continue
-            if section is None:
-                _header_line(head, text, path, number)
-            elif section == "Masses":
-                _mass_line(head, path, text, number)
-            elif section in ("Atoms", "Velocities"):
-                # one row per atom: keep the first, skip the rest without parsing
-                if section == "Atoms" and first_row is None:
-                    first_row = text.split()
-                for _ in islice(lines, max(head.n_atoms - 1, 0)):
-                    pass
-                section = "after " + section
+    pos, number, size = 0, 0, len(text)
+    while pos < size:
+        end = text.find(b"\n", pos)
+        stop = size if end < 0 else end + 1
+        raw = text[pos:stop].decode("utf-8", "replace")
+        row_bytes, pos = stop - pos, stop
+        number += 1
+        if number == 1:
+            continue  # the first line is a title
+        text_part, _, comment = raw.partition("#")
+        line = text_part.strip()
+        if not line:
+            continue
+        if section in ("after Atoms", "after Velocities") and not _SECTION.fullmatch(line):
+            what = section.split()[1]
+            raise InputError(f"has more {what} rows than the {head.n_atoms:,} atoms its "
+                             f"header declares (LAMMPS refuses such a file)",
+                             file=str(path), line=number)
+        if line in _LAMMPS_SECTIONS or _SECTION.fullmatch(line):
+            section = line
+            if section == "Atoms":
+                head.atoms_line = number
+                # where the line after "Atoms" starts in the file's own bytes
+                head.atoms_offset = None if crlf else pos
+                style_comment = comment.strip() or None
+            continue
+        if section is None:
+            _header_line(head, line, path, number)
+        elif section == "Masses":
+            _mass_line(head, path, line, number)
+        elif section in ("Atoms", "Velocities"):
+            # one row per atom: keep the first, jump over the rest without parsing
+            if section == "Atoms" and first_row is None:
+                first_row = line.split()
+            skip = max(head.n_atoms - 1, 0)
+            after = skip_lines(text, pos, skip, row_bytes)
+            number += skip  # exact whenever a line follows the jump
+            pos = size if after is None else after
+            section = "after " + section
     if head.atoms_line == 0 or head.n_atoms == 0:
         raise InputError("has no Atoms section (or no 'N atoms' line)", file=str(path))
     head.style = _lammps_style(path, head, style_comment, first_row)
@@ -190,52 +211,98 @@ def line_starts(data: bytes) -> np.ndarray:
     return np.concatenate([[0], newlines + 1, [len(data) + 1]])
 
 
-def load_rows(path: Path, data: bytes, starts: np.ndarray, first: int, n: int,
-              usecols, dtype) -> np.ndarray:
-    """``n`` rows from 0-based line ``first`` parsed by ``numpy.loadtxt``.
+def skip_lines(data: bytes, start: int, k: int, width: int | None = None) -> int | None:
+    """Byte offset ``k`` lines (``\\n``-terminated) after offset ``start``; None
+    when fewer than ``k`` newlines follow.
+
+    With ``width`` (the bytes of one row, newline included), rows of that
+    fixed width are tried first: one ``bytes.count`` instead of locating every
+    newline (the layout ``make`` writes); else every newline is found with numpy.
+    """
+    if k <= 0:
+        return start
+    if width:
+        stop = start + k * width
+        if stop <= len(data) and data[stop - 1] == 10 and data.count(b"\n", start, stop) == k:
+            return stop
+    newlines = np.flatnonzero(np.frombuffer(data, dtype=np.uint8, offset=start) == 10)
+    return start + int(newlines[k - 1]) + 1 if len(newlines) >= k else None
+
+
+def _row_span(data: bytes, start: int, n: int) -> tuple[int, int] | None:
+    """(offset of line n - 1 counted from the line at ``start``, offset past its
+    newline or ``len(data) + 1`` when it has none); None when the file holds
+    fewer lines (the text after the last newline, even empty, is a line)."""
+    end = data.find(b"\n", start)
+    last = start if n == 1 else skip_lines(data, start, n - 1,
+                                           end + 1 - start if end >= 0 else None)
+    if last is None:
+        return None
+    end = data.find(b"\n", last)
+    return last, len(data) + 1 if end < 0 else end + 1
+
+
+def load_rows(path: Path, data: bytes, start: int, first: int, n: int,
+              usecols, dtype) -> tuple[np.ndarray, int]:
+    """``n`` rows from byte offset ``start`` (0-based line ``first``) parsed by
+    ``numpy.loadtxt`` (in C, correctly rounded like Python's ``float``), and the
+    offset past the last row's newline (``len(data) + 1`` when it has none).
 
     Raises InputError (with the line) when the file ends early or its last row
     is cut short; ValueError when a row does not parse otherwise (the caller
     then lets ASE read the file and explain).
     """
-    n_lines = len(starts) - 1
-    last = first + n - 1
-    if last >= n_lines or not data[starts[last]:].strip():
+    span = _row_span(data, start, n)
+    if span is None or not data[span[0]:].strip():
         raise InputError(f"ends before its {n:,} atom rows are complete; the file looks "
                          "truncated", file=str(path), line=data.count(b"\n") + 1)
-    width = len(data[starts[first]:starts[first + 1]].split(b"#")[0].split())
-    if len(data[starts[last]:starts[last + 1]].split(b"#")[0].split()) < width:
+    last, stop = span
+    width = len(data[start:data.find(b"\n", start) + 1 or None].split(b"#")[0].split())
+    if len(data[last:stop].split(b"#")[0].split()) < width:
         raise InputError("ends in the middle of an atom row; the file looks truncated",
-                         file=str(path), line=last + 1)
-    block = data[starts[first]:starts[first + n] - 1]
+                         file=str(path), line=first + n)
+    block = data[start:stop - 1]
+    ndmin = 1 if isinstance(usecols, int) or np.dtype(dtype).names else 2
     rows = np.loadtxt(io.BytesIO(block), usecols=usecols, dtype=dtype, comments="#",
-                      ndmin=1 if isinstance(usecols, int) else 2)
+                      ndmin=ndmin)
     if len(rows) != n:
         raise ValueError(f"{len(rows)} rows parsed, {n} expected")  # blank lines inside
-    return rows
+    return rows, stop
 
 
-def fast_lammps(path: Path, head: LammpsHeader, types) -> Structure | None:
-    """LAMMPS atom rows with numpy; None if the file needs ASE's general reader."""
+def fast_lammps(path: Path, head: LammpsHeader, types, data: bytes | None = None
+                ) -> Structure | None:
+    """LAMMPS atom rows with numpy; None if the file needs ASE's general reader.
+
+    ``data`` is the file's bytes when the caller has read them already.
+    """
     if head.general_box:
         return None
-    data = path.read_bytes()
-    starts = line_starts(data)
+    if data is None:
+        data = path.read_bytes()
     first = head.atoms_line  # 0-based index of the line after "Atoms" (blank)
-    while first < len(starts) - 2 and not data[starts[first]:starts[first + 1]].strip():
-        first += 1
+    start = head.atoms_offset
+    if start is None:  # CR line ends: offsets of the text-mode lines differ
+        starts = line_starts(data)
+        start = int(starts[min(first, len(starts) - 1)])
+    while True:  # blank lines up to the first row (the last line stops the search)
+        end = data.find(b"\n", start)
+        if end < 0 or data[start:end + 1].strip():
+            break
+        start, first = end + 1, first + 1
     n_cols = _LAMMPS_STYLES[head.style]
     xyz_cols = (n_cols - 3, n_cols - 2, n_cols - 1)
     try:
-        width = len(data[starts[first]:starts[first + 1]].split(b"#")[0].split())
+        width = len(data[start:end + 1 if end >= 0 else None].split(b"#")[0].split())
         images = (n_cols, n_cols + 1, n_cols + 2) if width == n_cols + 3 else ()
         charge = (2,) if head.style == "charge" else ()  # id type q x y z
         usecols = (0, 1) + xyz_cols + images + charge
-        rows = load_rows(path, data, starts, first, head.n_atoms, usecols, np.float64)
+        rows, _ = load_rows(path, data, start, first, head.n_atoms, usecols, np.float64)
     except ValueError:
         return None
-    order = np.argsort(rows[:, 0], kind="stable")  # ASE orders atoms by id
-    rows = rows[order]
+    ids = rows[:, 0]
+    if not bool(np.all(ids[1:] >= ids[:-1])):  # ASE orders atoms by id (stable)
+        rows = rows[np.argsort(ids, kind="stable")]
     type_of = rows[:, 1].astype(np.int64)
     cell = _lammps_cell(head.bounds)
     positions = rows[:, 2:5].copy()

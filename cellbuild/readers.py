@@ -30,8 +30,7 @@ from .cif_text import (check_cif_complete, check_cif_loop_rows, check_cif_number
 from .errors import InputError
 from .formats import FORMATS, format_named, format_sniffed, title_of
 from .read_checks import check_claimed_counts, check_poscar, check_values
-from .read_lammps import (element_of_mass, fast_lammps, lammps_header, line_starts, load_rows,
-                          type_symbols)
+from .read_lammps import element_of_mass, fast_lammps, lammps_header, load_rows, type_symbols
 from .structure import Structure
 
 # element_of_mass lives in read_lammps and stays importable from here.
@@ -278,10 +277,11 @@ def read_poscar(path: Path, types, fast) -> ReadResult:
 
 
 def read_lammps(path: Path, types, fast) -> ReadResult:
-    header = lammps_header(path)
+    data = path.read_bytes()  # read once: the header parser and the rows share it
+    header = lammps_header(path, data)
     # the numpy reader validates every atom row, so that ASE is not handed a
     # malformed one (it raises RuntimeError or TypeError on those)
-    structure = fast_lammps(path, header, types)
+    structure = fast_lammps(path, header, types, data)
     if structure is None and not header.general_box:
         raise _unreadable(path, "lammps-data", ValueError("an atom row is not numbers"))
     if fast and structure is not None:
@@ -306,38 +306,97 @@ def read_lammps(path: Path, types, fast) -> ReadResult:
 
 def _fast_xyz(path: Path) -> Structure | None:
     """A single-frame extended XYZ with numpy; None if ASE is needed."""
-    from ase.io.extxyz import key_val_str_to_dict
-
     data = path.read_bytes()
-    starts = line_starts(data)
+    second = data.find(b"\n") + 1
+    third = data.find(b"\n", second) + 1
     try:
-        n = int(data[:starts[1]].strip())
-        info = key_val_str_to_dict(data[starts[1]:starts[2] - 1].decode("utf-8"))
-    except (ValueError, UnicodeDecodeError, IndexError):
+        if not second or not third:
+            return None
+        n = int(data[:second].strip())
+        comment = data[second:third - 1].decode("utf-8")
+    except (ValueError, UnicodeDecodeError):
         return None
+    if n < 1:
+        return None  # ASE's reader says what is wrong
+    info = _simple_comment(comment)
+    if info is None:  # quotes within values, brackets, escapes: ASE's parser decides
+        from ase.io.extxyz import key_val_str_to_dict
+
+        try:
+            info = key_val_str_to_dict(comment)
+        except (ValueError, IndexError):
+            return None
+        if "Lattice" in info:  # ASE's cell is the transpose of its 3x3 Lattice
+            info["Lattice"] = np.asarray(info["Lattice"]).T
     columns = _xyz_columns(str(info.get("Properties", "species:S:1:pos:R:3")))
     if columns is None or "Lattice" not in info:
         return None
     species_col, pos_cols = columns
+    # one pass over the rows: the species as up to 4 bytes (longer names are no
+    # element, so a cut one is refused below) and the three coordinates
+    dtype = np.dtype([("species", "S4"), ("x", "f8"), ("y", "f8"), ("z", "f8")])
     try:
-        names = load_rows(path, data, starts, 2, n, species_col, "U3")
-        positions = load_rows(path, data, starts, 2, n, pos_cols, np.float64)
+        rows, end = load_rows(path, data, third, 2, n, (species_col, *pos_cols), dtype)
     except ValueError:
         return None
-    if data[starts[min(2 + n, len(starts) - 1)] - 1:].strip():
+    if data[end - 1:].strip():
         return None  # more frames: ASE reads the last one
     if "pbc" in info:
         _warn_pbc(info["pbc"])
-    symbols, first, inverse = np.unique(names, return_index=True, return_inverse=True)
-    rank = np.empty(len(symbols), dtype=np.int32)
-    rank[np.argsort(first)] = np.arange(len(symbols))
+    # symbols in order of first appearance; the 4 bytes of a name as one integer
+    keys = np.ascontiguousarray(rows["species"]).view(np.uint32)
+    _, first, inverse = np.unique(keys, return_index=True, return_inverse=True)
+    rank = np.empty(len(first), dtype=np.int32)
+    rank[np.argsort(first)] = np.arange(len(first))
     from ase.data import atomic_numbers
 
-    ordered = tuple(str(s) for s in symbols[np.argsort(first)])
+    ordered = tuple(rows["species"][k].decode("latin-1") for k in np.sort(first))
     if not all(s in atomic_numbers for s in ordered):
         return None
+    positions = np.stack([rows["x"], rows["y"], rows["z"]], axis=1)
     return Structure(cell=np.array(info["Lattice"], dtype=np.float64).reshape(3, 3),
-                     positions=positions, species=rank[inverse], symbols=ordered)
+                     positions=positions, species=rank[inverse.reshape(-1)], symbols=ordered)
+
+
+#: One ``key=value`` (a bare value or one in double quotes, without escapes or
+#: brackets) or a bare ``key`` of an extended XYZ comment line.
+_COMMENT_ITEM = re.compile(r'\s*([^\s="\'{}\[\]\\]+)(?:=(?:"([^"\\]*)"|([^\s="\'{}\[\]\\]+)))?'
+                           r'(?=\s|$)')
+#: A plain decimal number (what ``float`` reads the same way everywhere).
+_PLAIN_NUMBER = re.compile(r"[-+]?(?:\d+\.?\d*|\.\d+)(?:[eE][-+]?\d+)?")
+#: Extended XYZ's words for booleans (ASE's table).
+_BOOLEANS = {"T": True, "F": False, "true": True, "false": False, "True": True,
+             "False": False, "TRUE": True, "FALSE": False}
+
+
+def _simple_comment(comment: str) -> dict | None:
+    """``Lattice`` (3x3, rows the cell vectors), ``Properties`` and ``pbc`` of a
+    plain extended XYZ comment line, as ASE's ``key_val_str_to_dict`` reads them,
+    without importing ``ase.io`` (1 s); None for any line outside that plain
+    form, which then goes to ASE's parser."""
+    items, pos, text = {}, 0, comment.strip()
+    while pos < len(text):
+        found = _COMMENT_ITEM.match(text, pos)
+        if found is None:
+            return None
+        key = found.group(1)
+        value = found.group(2) if found.group(2) is not None else found.group(3)
+        items[key] = "T" if value is None else value
+        pos = found.end()
+    info = {}
+    if "Properties" in items:
+        info["Properties"] = items["Properties"]
+    if "Lattice" in items:
+        tokens = re.findall(r"[^\s,]+", items["Lattice"])
+        if len(tokens) != 9 or not all(_PLAIN_NUMBER.fullmatch(t) for t in tokens):
+            return None
+        info["Lattice"] = np.array([float(t) for t in tokens]).reshape(3, 3)
+    if "pbc" in items:
+        flags = re.findall(r"[^\s,]+", items["pbc"])
+        if not flags or any(f not in _BOOLEANS for f in flags):
+            return None
+        info["pbc"] = [_BOOLEANS[f] for f in flags] if len(flags) > 1 else _BOOLEANS[flags[0]]
+    return info
 
 
 def _xyz_columns(properties: str):
