@@ -271,16 +271,18 @@ def _atoms_per_cell_check(plan: Plan, structure: Structure, placements) -> Check
     the placements) are left out.
     """
     crystal = plan.crystal
-    lattice_atoms = np.flatnonzero(structure.site % crystal.n_grid < crystal.n_basis)
     vacant = np.concatenate([p.site_ids for p in placements if p.kind == "vacancy"] or
                             [np.empty(0, np.int64)])
-    cells = np.empty(len(lattice_atoms) + len(vacant), dtype=np.int64)
+    cells = np.empty(structure.n_atoms + len(vacant), dtype=np.int64)
+    filled = 0
     # in chunks that stay in cache, without a copy of all the positions
-    for start in range(0, len(lattice_atoms), _CHUNK_ATOMS):
-        rows = lattice_atoms[start:start + _CHUNK_ATOMS]
-        cells[start:start + len(rows)] = _cell_of(crystal, plan.repeat, structure.positions[rows])
-    cells[len(lattice_atoms):] = _cell_of(crystal, plan.repeat,
-                                          site_positions(crystal, plan.repeat, vacant))
+    for part, on_lattice in _lattice_chunks(structure, crystal):
+        found = _cell_of(crystal, plan.repeat, structure.positions[part][on_lattice])
+        cells[filled:filled + len(found)] = found
+        filled += len(found)
+    found = _cell_of(crystal, plan.repeat, site_positions(crystal, plan.repeat, vacant))
+    cells[filled:filled + len(found)] = found
+    cells = cells[:filled + len(found)]
     per_cell = np.bincount(cells, minlength=plan.n_cells)
     z = crystal.n_basis
     unit = "conventional cell" if crystal.parent is None else "repeat unit"
@@ -293,6 +295,14 @@ def _atoms_per_cell_check(plan: Plan, structure: Structure, placements) -> Check
 #: Atoms handled per chunk by the audit's per-atom passes (positions of this many
 #: atoms, 6 MB, stay in cache between the steps of a pass).
 _CHUNK_ATOMS = 1 << 18
+
+
+def _lattice_chunks(structure: Structure, crystal: Crystal):
+    """(slice of atoms, bool mask of those on lattice sites, not interstitial),
+    chunk by chunk over the atoms in file order."""
+    for start in range(0, structure.n_atoms, _CHUNK_ATOMS):
+        part = slice(start, min(start + _CHUNK_ATOMS, structure.n_atoms))
+        yield part, structure.site[part] % crystal.n_grid < crystal.n_basis
 
 
 def _cell_of(crystal: Crystal, repeat: tuple[int, int, int], points: np.ndarray) -> np.ndarray:
@@ -323,13 +333,20 @@ def _sublattice_check(plan: Plan, structure: Structure, placements) -> tuple[dic
     coordinates, within 1e-6 Angstrom of its grid site (so a sublattice is
     where its atoms are, not only what their site ids say)."""
     crystal = plan.crystal
-    local = structure.site % crystal.n_grid
-    on_lattice = local < crystal.n_basis
     labels = tuple(dict.fromkeys(crystal.sublattice))
     label_of_site = np.array([labels.index(lb) for lb in crystal.sublattice], dtype=np.int64)
     n_sym = len(structure.symbols)
-    code = label_of_site[local[on_lattice]] * n_sym + structure.species[on_lattice]
-    counted = np.bincount(code, minlength=len(labels) * n_sym).reshape(len(labels), n_sym)
+    counted = np.zeros(len(labels) * n_sym, dtype=np.int64)
+    off = 0.0
+    # one pass in chunks: the counts and the distance of each atom from its site
+    for part, on_lattice in _lattice_chunks(structure, crystal):
+        site = structure.site[part][on_lattice]
+        code = label_of_site[site % crystal.n_grid] * n_sym + structure.species[part][on_lattice]
+        counted += np.bincount(code, minlength=len(labels) * n_sym)
+        ideal = site_positions(crystal, plan.repeat, site)
+        off = max(off, _periodic_offset(structure.cell,
+                                        structure.positions[part][on_lattice] - ideal))
+    counted = counted.reshape(len(labels), n_sym)
     expected = np.zeros_like(counted)
     for s, element in enumerate(crystal.elements):
         expected[label_of_site[s], structure.symbols.index(element)] += plan.n_cells
@@ -340,8 +357,6 @@ def _sublattice_check(plan: Plan, structure: Structure, placements) -> tuple[dic
         expected[:, structure.symbols.index(p.host)] -= where
         if p.kind != "vacancy":
             expected[:, structure.symbols.index(p.element)] += where
-    ideal = site_positions(crystal, plan.repeat, structure.site[on_lattice])
-    off = _periodic_offset(structure.cell, structure.positions[on_lattice] - ideal)
     found = {lb: {e: int(n) for e, n in zip(structure.symbols, row) if n}
              for lb, row in zip(labels, counted)}
     ok = bool(np.array_equal(counted, expected)) and off <= 1e-6

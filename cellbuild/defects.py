@@ -47,12 +47,14 @@ class Placement:
         return int(self.site_ids.size)
 
 
-def place_defects(plan: Plan, perfect: Structure) -> tuple[Structure, list[Placement]]:
+def place_defects(plan: Plan, perfect: Structure, *, grouped: bool = False
+                  ) -> tuple[Structure, list[Placement]]:
     """Apply the recipe's defects to the perfect supercell, seeded by ``recipe.seed``
     (or, for ``placement: distinct``, the sites of the recipe's configuration).
 
     Returns the defective structure (vacancies removed, substituted species
-    changed, interstitials appended in site order) and the placements.
+    changed, interstitials appended in site order; with ``grouped``, then
+    reordered as :meth:`Structure.grouped_by_species` does) and the placements.
     """
     recipe = plan.recipe
     counts = planned_counts(plan)
@@ -70,7 +72,7 @@ def place_defects(plan: Plan, perfect: Structure) -> tuple[Structure, list[Place
                   req.host)
         for (req, _), sites in zip(counts, chosen)
     ]
-    return apply(plan, perfect, placements), placements
+    return apply(plan, perfect, placements, grouped=grouped), placements
 
 
 def atom_indices(structure: Structure, groups: list[np.ndarray]) -> list[np.ndarray]:
@@ -81,8 +83,11 @@ def atom_indices(structure: Structure, groups: list[np.ndarray]) -> list[np.ndar
     return [order[np.searchsorted(structure.site, ids, sorter=order)] for ids in groups]
 
 
-def apply(plan: Plan, perfect: Structure, placements: list[Placement]) -> Structure:
-    """The structure with ``placements`` applied to the perfect crystal ``perfect``."""
+def apply(plan: Plan, perfect: Structure, placements: list[Placement], *,
+          grouped: bool = False) -> Structure:
+    """The structure with ``placements`` applied to the perfect crystal ``perfect``;
+    with ``grouped``, equal to ``apply(...).grouped_by_species()`` (atoms
+    gathered once, in the grouped order, instead of copied twice)."""
     n_grid, n_basis = plan.crystal.n_grid, plan.crystal.n_basis
     symbols = perfect.symbols
     species = perfect.species.copy()
@@ -100,6 +105,12 @@ def apply(plan: Plan, perfect: Structure, placements: list[Placement]) -> Struct
             keep[index] = False
         else:  # a substitution or one side of an antisite pair
             species[index] = symbols.index(p.element)
+    if grouped and not new_sites:
+        kept = np.flatnonzero(keep)
+        if not np.all(species[kept[1:]] >= species[kept[:-1]]):
+            kept = kept[np.argsort(species[kept], kind="stable")]
+        return Structure(perfect.cell, perfect.positions[kept], species[kept], symbols,
+                         perfect.site[kept])
     positions, site = perfect.positions[keep], perfect.site[keep]
     species = species[keep]
     if new_sites:
@@ -109,7 +120,8 @@ def apply(plan: Plan, perfect: Structure, placements: list[Placement]) -> Struct
         positions = np.concatenate([positions, site_positions(plan.crystal, plan.repeat, extra)])
         species = np.concatenate([species, np.concatenate(new_species)[order]])
         site = np.concatenate([site, extra])
-    return Structure(perfect.cell, positions, species, symbols, site)
+    result = Structure(perfect.cell, positions, species, symbols, site)
+    return result.grouped_by_species() if grouped else result
 
 
 class _Picker:
@@ -135,14 +147,22 @@ class _Picker:
         """``n`` distinct free sites of ``req``'s target, drawn with the shared generator."""
         if n == 0:
             return np.empty(0, dtype=np.int64)
-        pool = self._pool(req)
-        free = np.flatnonzero(~self.taken[pool])  # positions in the pool
+        local = np.array(req.sites, dtype=np.int64)
+        # which pool entries (see _pool: cell by cell, the request's sites in each)
+        # are taken, one byte each, without the pool's 8-byte site ids
+        taken = self.taken.reshape(self.plan.n_cells, self.crystal.n_grid)[:, local].ravel()
         if self.separation is None:
-            chosen = free[self.rng.choice(free.size, size=n, replace=False)]
+            if taken.any():
+                free = np.flatnonzero(~taken)  # positions in the pool
+                chosen = free[self.rng.choice(free.size, size=n, replace=False)]
+            else:  # every entry free: an entry's position in the pool is itself
+                chosen = self.rng.choice(taken.size, size=n, replace=False)
         else:
-            chosen = self._pick_separated(req, pool, free, n)
-        self.taken[pool[chosen]] = True
-        return pool[chosen]
+            chosen = self._pick_separated(req, self._pool(req), np.flatnonzero(~taken), n)
+        cell, k = np.divmod(chosen, len(local))
+        sites = cell * self.crystal.n_grid + local[k]  # = _pool(req)[chosen]
+        self.taken[sites] = True
+        return sites
 
     def _pick_separated(self, req: Request, pool: np.ndarray, free: np.ndarray,
                         n: int) -> np.ndarray:

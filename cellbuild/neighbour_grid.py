@@ -311,10 +311,8 @@ def _grid_min_distance(cell: np.ndarray, positions: np.ndarray, radius: float,
         np.bitwise_and(occupancy, padded[d0:d0 + m0, d1:d1 + m1, d2:d2 + m2], out=joined)
         if not joined.any():
             continue
-        shifted = _shifted_sites(grid, np.unravel_index(flat, tuple(grid)),
-                                 offsets[k].tolist(), out=np.empty(len(flat), dtype=np.int64))
-        i = int(np.argmax(sites.occupancy[shifted]))
-        j = int(np.argmax(flat == shifted[i]))
+        i, target = _first_joined(sites, offsets[k].tolist())
+        j = _atom_at(flat, target)
         # the actual vector: the grid offset corrected by both atoms' residuals
         step = offsets[k] / grid
         frac = sites.frac_of([i, j])
@@ -322,6 +320,30 @@ def _grid_min_distance(cell: np.ndarray, positions: np.ndarray, radius: float,
         vector = _times((diff + np.rint(step - diff))[None, :], cell)[0]
         return float(np.linalg.norm(vector)), min(i, j), max(i, j)
     return None
+
+
+def _first_joined(sites: GridSites, offset) -> tuple[int, int]:
+    """The first atom (in atom order) whose site + ``offset`` is occupied, and
+    that site's flat index; atoms gathered in chunks, stopping at the first hit."""
+    grid, flat = sites.grid, sites.flat
+    shifted = np.empty(min(len(flat), _LOCATE_CHUNK), dtype=np.int64)
+    for start in range(0, len(flat), _LOCATE_CHUNK):
+        part = flat[start:start + _LOCATE_CHUNK]
+        out = _shifted_sites(grid, np.unravel_index(part, tuple(grid)), offset,
+                             out=shifted[:len(part)])
+        hits = np.flatnonzero(sites.occupancy[out])
+        if hits.size:
+            return start + int(hits[0]), int(out[hits[0]])
+    raise RuntimeError("an offset that joins two occupied sites has an atom at each end")
+
+
+def _atom_at(flat: np.ndarray, site: int) -> int:
+    """The atom on grid site ``site`` (the first, in chunks, stopping at the hit)."""
+    for start in range(0, len(flat), _LOCATE_CHUNK):
+        hits = np.flatnonzero(flat[start:start + _LOCATE_CHUNK] == site)
+        if hits.size:
+            return start + int(hits[0])
+    raise RuntimeError("an occupied site holds an atom")
 
 
 def _count_dtype(n_offsets: int):

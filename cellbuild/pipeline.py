@@ -68,7 +68,8 @@ def build(recipe: Recipe, *, strict: bool = False, progress: Progress | None = N
     note("build")
     perfect = build_perfect(plan)
     note("defects")
-    structure, placements = place_defects(plan, perfect)
+    # grouped by species as it is placed: one copy of the atoms, not two
+    structure, placements = place_defects(plan, perfect, grouped=True)
     facts = None
     if recipe.defects.arrangement is not None:
         from .arrangement import arrange  # compiles its kernel on first use
@@ -77,7 +78,7 @@ def build(recipe: Recipe, *, strict: bool = False, progress: Progress | None = N
         # its own stream from the seed: the defects' draws stay what they were
         placements, facts = arrange(plan, perfect, placements,
                                     np.random.default_rng([recipe.seed, 1]), progress=progress)
-        structure = apply(plan, perfect, placements)
+        structure = apply(plan, perfect, placements, grouped=True)
     configuration = None
     if recipe.defects.placement == "distinct":
         from .variants import configuration_facts
