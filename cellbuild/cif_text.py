@@ -11,9 +11,11 @@ CIF reader.
 """
 from __future__ import annotations
 
+import io
 import math
 import re
 import shlex
+import string
 from dataclasses import dataclass
 from pathlib import Path
 
@@ -71,16 +73,18 @@ _CIF_COORDINATES = ("_atom_site_fract_x", "_atom_site_fract_y", "_atom_site_frac
                     "_atom_site_cartn_x", "_atom_site_cartn_y", "_atom_site_cartn_z")
 
 
-def check_cif_numbers(path: Path, text: str, loops: list[_CifLoop]) -> None:
+def check_cif_numbers(path: Path, text: str, loops: list[_CifLoop],
+                      plain: PlainTable | None = None) -> None:
     """InputError naming the line of a cell parameter or atom coordinate that is
     not a number (uncertainties such as 0.25(1) allowed): ASE's reader keeps
-    such a value as text and fails on it later with a TypeError."""
-    for match in _SINGLE_VALUE.finditer(text):
+    such a value as text and fails on it later with a TypeError. A ``plain``
+    table has had its coordinates parsed as numbers already."""
+    for match in single_values(text, loops):
         if match.group(1).lower() in CIF_CELL_TAGS and not _cif_number(match.group(2)):
             raise InputError(f"has {match.group(1)} = {match.group(2)!r}, which is not a number",
                              file=str(path), line=text.count("\n", 0, match.start()) + 1)
     table = _atom_site_loop(loops)
-    if table is None:
+    if table is None or plain is not None:
         return
     columns = [k for k, h in enumerate(table.heads) if h in _CIF_COORDINATES]
     if not columns:
@@ -112,12 +116,16 @@ def _cif_number(value: str) -> bool:
     return True
 
 
-def cif_partial_occupancy(loops: list[_CifLoop]) -> list[dict]:
+def cif_partial_occupancy(loops: list[_CifLoop], plain: PlainTable | None = None
+                          ) -> list[dict]:
     """Atom-site rows whose ``_atom_site_occupancy`` is below 1 (by more than
     0.001), as {"label", "symbol", "occupancy", "line"}; unknown values ('?',
-    '.') count as 1."""
+    '.') count as 1. A ``plain`` table answers "none" from its parsed column."""
     table = _atom_site_loop(loops)
     if table is None or "_atom_site_occupancy" not in table.heads:
+        return []
+    if plain is not None and not np.any(
+            plain.column("_atom_site_occupancy") < 1.0 - 1e-3):
         return []
     heads = list(table.heads)
     width, column = len(heads), heads.index("_atom_site_occupancy")
@@ -155,32 +163,91 @@ class _CifLoop:
     heads: tuple[str, ...]
     body: str
     body_line: int  # 1-based line where ``body`` starts
+    start: int = 0  # offsets of ``body`` in the text
+    stop: int = 0
 
     def rows(self) -> list[str]:
         """Row lines, blank and comment lines left out (error paths and small loops)."""
         return [ln for ln in self.body.splitlines()
                 if ln.strip() and not ln.lstrip().startswith("#")]
 
+    def has_rows(self) -> bool:
+        """Whether :meth:`rows` is not empty; a prefix of the body answers a long
+        loop (a cut line that counts as a row is a row when whole)."""
+        head = self.body[:65536]
+        if any(ln.strip() and not ln.lstrip().startswith("#") for ln in head.splitlines()):
+            return True
+        return len(head) < len(self.body) and bool(self.rows())
+
 
 _LOOP_START = re.compile(r"^[ \t]*loop_[ \t]*$", re.MULTILINE)
 _LOOP_HEAD = re.compile(r"\n[ \t]*(_\S+)[ \t]*(?=\n|$)")
 _LOOP_END = re.compile(r"^[ \t]*(?:_|loop_|data_)", re.MULTILINE)
 _SINGLE_VALUE = re.compile(r"^[ \t]*(_\S+)[ \t]+(\S[^\n]*?)[ \t]*$", re.MULTILINE)
+#: What precedes the underscore of a line that ends a loop body.
+_LINE_OPENING = re.compile(r"[ \t]*(?:loop|data)?")
+
+
+def single_values(text: str, loops: list[_CifLoop]):
+    """The ``_tag value`` lines of the text (``_SINGLE_VALUE`` matches, in order),
+    the loop bodies skipped: no line inside one starts with ``_``, so none
+    matches there, and a million atom rows are not scanned."""
+    pos = 0
+    for loop in loops:
+        yield from _SINGLE_VALUE.finditer(text, pos, loop.start)
+        pos = max(pos, loop.stop)
+    yield from _SINGLE_VALUE.finditer(text, pos)
 
 
 def cif_loops(text: str) -> list[_CifLoop]:
-    """Every loop of the text, found by regular expressions: the scan runs in C,
-    not a Python loop over the (possibly million) atom rows."""
+    """Every loop of the text: ``loop_`` lines found with ``str.find`` and the end
+    of each body with :func:`_loop_end`, so that the scan runs in C, not a
+    Python loop over the (possibly million) atom rows."""
     loops = []
-    for match in _LOOP_START.finditer(text):
-        pos, heads = match.end(), []
+    for pos in _loop_starts(text):
+        heads = []
         while (head := _LOOP_HEAD.match(text, pos)) is not None:
             heads.append(head.group(1).lower())
             pos = head.end()
-        end = _LOOP_END.search(text, pos)
-        stop = end.start() if end else len(text)
-        loops.append(_CifLoop(tuple(heads), text[pos:stop], text.count("\n", 0, pos) + 1))
+        stop = _loop_end(text, pos)
+        loops.append(_CifLoop(tuple(heads), text[pos:stop], text.count("\n", 0, pos) + 1,
+                              pos, stop))
     return loops
+
+
+def _loop_starts(text: str):
+    """End offset of each ``loop_`` line (what ``_LOOP_START.finditer`` finds)."""
+    pos = 0
+    while (at := text.find("loop_", pos)) >= 0:
+        pos = at + 5
+        line_start = text.rfind("\n", 0, at) + 1
+        line_end = text.find("\n", at)
+        line_end = len(text) if line_end < 0 else line_end
+        if not text[line_start:at].strip(" \t") and not text[pos:line_end].strip(" \t"):
+            yield line_end
+            pos = line_end
+
+
+#: Underscores examined one by one before the regular expression takes over
+#: (labels such as Cu_1 would otherwise cost a Python step per row).
+_LOOP_END_CANDIDATES = 1000
+
+
+def _loop_end(text: str, pos: int) -> int:
+    """Start of the first line from ``pos`` on that begins (after blanks) with
+    ``_``, ``loop_`` or ``data_`` (what ``_LOOP_END.search`` finds), else len(text).
+    Every such line holds an underscore, so only underscores are looked at."""
+    at = pos
+    for _ in range(_LOOP_END_CANDIDATES):
+        at = text.find("_", at)
+        if at < 0:
+            return len(text)
+        line_start = text.rfind("\n", 0, at) + 1
+        if line_start >= pos and _LINE_OPENING.fullmatch(text, line_start, at):
+            return line_start
+        at += 1
+    end = _LOOP_END.search(text, at)
+    return end.start() if end else len(text)
 
 
 def _atom_site_loop(loops: list[_CifLoop]) -> _CifLoop | None:
@@ -197,13 +264,16 @@ _CIF_IDENTITY = {"x,y,z", "+x,+y,+z"}
 CIF_FRACTIONAL = ("_atom_site_fract_x", "_atom_site_fract_y", "_atom_site_fract_z")
 
 
-def fast_p1_cif(text: str, loops: list[_CifLoop]) -> Structure | None:
+def fast_p1_cif(text: str, loops: list[_CifLoop], plain: PlainTable | None = None
+                ) -> Structure | None:
     """A single-block CIF in space group P 1 whose atom table holds plain numbers,
     read with numpy; None for anything else (symmetry to expand, uncertainties,
-    quoted fields, several blocks), which goes to the general readers."""
-    if len(re.findall(r"^data_", text, re.MULTILINE)) != 1:
+    quoted fields, several blocks), which goes to the general readers. With
+    ``plain`` (the table parsed by :func:`plain_atom_table`) no field is a
+    Python string: the result is the same, bit for bit."""
+    if text.startswith("data_") + text.count("\ndata_") != 1:
         return None
-    tags = {m.group(1).lower(): m.group(2).strip("'\"") for m in _SINGLE_VALUE.finditer(text)}
+    tags = {m.group(1).lower(): m.group(2).strip("'\"") for m in single_values(text, loops)}
     if not _cif_is_p1(loops, tags) or any(t not in tags for t in CIF_CELL_TAGS):
         return None
     try:
@@ -218,6 +288,9 @@ def fast_p1_cif(text: str, loops: list[_CifLoop]) -> Structure | None:
                       None)
     if symbol_tag is None or any(t not in columns for t in CIF_FRACTIONAL):
         return None
+    if plain is not None:
+        frac = np.stack([plain.column(t) for t in CIF_FRACTIONAL], axis=1)
+        return _p1_structure(cellpar, frac, plain.column(symbol_tag))
     if any(c in table.body for c in "'\"()?#"):
         return None  # quoted fields, uncertainties, unknowns or comments
     fields = table.body.split()
@@ -229,15 +302,80 @@ def fast_p1_cif(text: str, loops: list[_CifLoop]) -> Structure | None:
                          for t in CIF_FRACTIONAL], axis=1)
     except ValueError:
         return None
-    symbols = _cif_symbols(np.array(fields[columns.index(symbol_tag)::width]))
-    if symbols is None:
-        return None
-    from ase import Atoms
+    return _p1_structure(cellpar, frac, np.array(fields[columns.index(symbol_tag)::width]))
+
+
+def _p1_structure(cellpar: list[float], frac: np.ndarray, labels: np.ndarray
+                  ) -> Structure | None:
+    """The structure ASE's ``Atoms(symbols, scaled_positions=frac, cell=cellpar)``
+    gives (same cell, positions = frac . cell), without a Python string per atom;
+    None when a label names no element. Species codes follow first appearance."""
+    from ase.data import atomic_numbers
     from ase.geometry import cellpar_to_cell
 
-    cell = cellpar_to_cell(cellpar)  # ASE's orientation, as its CIF reader gives
-    atoms = Atoms(symbols=list(symbols), scaled_positions=frac, cell=cell, pbc=True)
-    return Structure.from_ase(atoms)
+    # the table's 8 bytes of a label as one integer: no string comparisons
+    keys = np.ascontiguousarray(labels).view(np.uint64) if labels.dtype == "S8" else labels
+    unique, first, inverse = np.unique(keys, return_index=True, return_inverse=True)
+    elements = []
+    for k in first.tolist():
+        label = labels[k].decode("ascii") if labels.dtype.kind == "S" else str(labels[k])
+        match = re.match(r"[A-Z][a-z]?", label)
+        if match is None or match.group() not in atomic_numbers:
+            return None
+        elements.append(match.group())
+    # elements in order of their first row, as Structure.from_ase numbers them
+    order = {}
+    for k in np.argsort(first, kind="stable").tolist():
+        order.setdefault(elements[k], len(order))
+    code = np.array([order[e] for e in elements], dtype=np.int32)
+    cell = np.array(cellpar_to_cell(cellpar), dtype=np.float64)
+    return Structure(cell=cell, positions=np.dot(frac, cell), species=code[inverse.reshape(-1)],
+                     symbols=tuple(order))
+
+
+#: Bytes of an atom table :func:`plain_atom_table` parses: letters, digits, blanks,
+#: newlines and the signs and points of numbers. Quotes, comments, brackets,
+#: '?', '_' (Python's float reads 1_0) and other characters go to the text path.
+_PLAIN_TABLE_BYTES = (string.ascii_letters + string.digits + " \t\n.+-").encode("ascii")
+#: Columns parsed as numbers; the symbol column keeps its first 8 bytes (an
+#: element is its first one or two letters); other columns are not used.
+_NUMBER_COLUMNS = _CIF_COORDINATES + ("_atom_site_occupancy",)
+
+
+@dataclass(frozen=True)
+class PlainTable:
+    """The atom-site loop parsed in one ``numpy.loadtxt`` call (in C, numbers
+    correctly rounded like Python's ``float``): one row per line, every line
+    with one field per column (loadtxt refuses anything else)."""
+
+    loop: _CifLoop
+    rows: np.ndarray  # structured, field "cK" for column K
+
+    def column(self, tag: str) -> np.ndarray:
+        return self.rows[f"c{self.loop.heads.index(tag)}"]
+
+
+def plain_atom_table(loops: list[_CifLoop]) -> PlainTable | None:
+    """The atom-site loop as a :class:`PlainTable`, or None when its text holds
+    anything but plain rows of plain numbers and words (then the checks and
+    readers take the text path, field by field)."""
+    table = _atom_site_loop(loops)
+    if table is None or not table.body.isascii():
+        return None
+    raw = table.body.encode("ascii")
+    if raw.translate(None, _PLAIN_TABLE_BYTES):
+        return None
+    symbol = "_atom_site_type_symbol" if "_atom_site_type_symbol" in table.heads \
+        else "_atom_site_label"
+    dtype = np.dtype([(f"c{k}", "f8" if h in _NUMBER_COLUMNS else "S8" if h == symbol else "S1")
+                      for k, h in enumerate(table.heads)])
+    if not table.heads or not raw.strip():
+        return None
+    try:
+        rows = np.loadtxt(io.BytesIO(raw), dtype=dtype, comments=None, ndmin=1)
+    except ValueError:
+        return None
+    return PlainTable(table, rows)
 
 
 #: Atom rows above which a CIF the table reader cannot take is refused: ASE's
@@ -301,22 +439,8 @@ def _cif_symmetry_ops(loops: list[_CifLoop]) -> list[str] | None:
     return None
 
 
-def _cif_symbols(labels: np.ndarray) -> np.ndarray | None:
-    """Element symbols from type symbols or labels (Cu, Cu12, Fe2+ -> Cu, Cu, Fe)."""
-    from ase.data import atomic_numbers
-
-    unique, inverse = np.unique(labels, return_inverse=True)
-    symbols = []
-    for label in unique:
-        match = re.match(r"[A-Z][a-z]?", label)
-        if match is None or match.group() not in atomic_numbers:
-            return None
-        symbols.append(match.group())
-    return np.array(symbols)[inverse]
-
-
 def check_cif_complete(path: Path, structure: Structure, text: str,
-                       loops: list[_CifLoop]) -> None:
+                       loops: list[_CifLoop], plain: PlainTable | None = None) -> None:
     """Refuse a CIF whose atom table was cut short.
 
     A CIF loop is a stream of tokens, so readers accept a table that simply
@@ -324,7 +448,8 @@ def check_cif_complete(path: Path, structure: Structure, text: str,
     fields than the loop has columns, or the declared ``_chemical_formula_sum``
     is not a whole multiple of the atoms read.
     """
-    line = _cif_short_row(loops)
+    # a plain table is whole rows (loadtxt took one field per column on each line)
+    line = None if plain is not None and loops[-1] is plain.loop else _cif_short_row(loops)
     if line is not None:
         raise InputError("ends in the middle of the atom table (the last row is incomplete); "
                          "the file looks truncated", file=str(path), line=line)
@@ -352,8 +477,15 @@ def _cif_short_row(loops: list[_CifLoop]) -> int | None:
     return table.body_line + body.count("\n")
 
 
+_FORMULA_SUM = re.compile(r"_chemical_formula_sum\s+['\"]?([^'\"\n]+)")
+
+
 def _cif_formula_sum(text: str) -> dict[str, float] | None:
-    match = re.search(r"^_chemical_formula_sum\s+['\"]?([^'\"\n]+)", text, re.MULTILINE)
+    match, at = None, 0
+    while match is None and (at := text.find("_chemical_formula_sum", at)) >= 0:
+        if at == 0 or text[at - 1] == "\n":  # the first one opening a line
+            match = _FORMULA_SUM.match(text, at)
+        at += 1
     if not match:
         return None
     pairs = re.findall(r"([A-Z][a-z]?)\s*([0-9.]*)", match.group(1))

@@ -26,7 +26,7 @@ import numpy as np
 
 from .cif_text import (check_cif_complete, check_cif_loop_rows, check_cif_numbers,
                        check_cif_symbol_column, cif_loops, cif_partial_occupancy, fast_p1_cif,
-                       refuse_large_cif_table)
+                       plain_atom_table, refuse_large_cif_table)
 from .errors import InputError
 from .formats import FORMATS, format_named, format_sniffed, title_of
 from .read_checks import check_claimed_counts, check_poscar, check_values
@@ -181,19 +181,23 @@ def read_cif(path: Path, types, fast) -> ReadResult:
     loops = cif_loops(text)
     # pymatgen's parser divides by the column count and by the rows: refuse a
     # loop without either (the CIF syntax requires both) before it sees one
-    empty = next((lp for lp in loops if not lp.heads or not lp.rows()), None)
+    empty = next((lp for lp in loops if not lp.heads or not lp.has_rows()), None)
     if empty is not None:
         what = "column names" if not empty.heads else "values"
         raise InputError(f"has a loop_ without {what}; the file looks damaged",
                          file=str(path), line=empty.body_line)
+    # the atom table in one numpy pass when it is plain words and numbers; the
+    # checks below then read its columns instead of splitting its text
+    plain = plain_atom_table(loops)
     for loop in loops:  # ASE's parser raises RuntimeError on a broken last row
-        check_cif_loop_rows(path, loop)
-    check_cif_numbers(path, text, loops)
-    partial = cif_partial_occupancy(loops)
+        if plain is None or loop is not plain.loop:  # a plain table is whole rows
+            check_cif_loop_rows(path, loop)
+    check_cif_numbers(path, text, loops, plain)
+    partial = cif_partial_occupancy(loops, plain)
     # a disordered table lists several atoms on one site: ASE's reader keeps one
-    structure = None if partial else fast_p1_cif(text, loops)
+    structure = None if partial else fast_p1_cif(text, loops, plain)
     if structure is not None:
-        check_cif_complete(path, structure, text, loops)
+        check_cif_complete(path, structure, text, loops, plain)
         return ReadResult(structure, "cif", "cellbuild (P 1 table)", partial_occupancy=partial)
     refuse_large_cif_table(path, loops)
     check_cif_symbol_column(path, loops)
