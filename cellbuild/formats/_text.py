@@ -26,6 +26,7 @@ from __future__ import annotations
 
 from concurrent.futures import ThreadPoolExecutor
 from dataclasses import dataclass
+from functools import lru_cache
 from typing import Callable, Iterator, Sequence, Union
 
 import numpy as np
@@ -259,12 +260,13 @@ class Row:
         # The integer part of a number field (prefix, blanks, digits) comes
         # from one lookup when all its forms fit a small table and one word,
         # else from digit groups plus XOR masks.
-        self._heads = {i: _head_table(_int_digits(f), f.prefixes)
+        self._heads = {i: _head_table(_int_digits(f), tuple(f.prefixes))
                        for i, f, _ in numbers if lookup and _small_head(f)}
-        self._masks = {i: _prefix_masks(s + _digits_at(f), _int_digits(f), f.prefixes)
+        self._masks = {i: _prefix_masks(s + _digits_at(f), _int_digits(f), tuple(f.prefixes))
                        for i, f, s in numbers if i not in self._heads}
         self._base = self._base_words()
-        self._texts = {i: _text_pieces(f) for i, f in enumerate(self.fields)
+        self._texts = {i: _text_pieces(Text(tuple(f.labels), f.right))
+                       for i, f in enumerate(self.fields)
                        if isinstance(f, Text)}
 
     def _base_words(self) -> np.ndarray:
@@ -364,17 +366,30 @@ def _small_head(f: Fixed | Int) -> bool:
     return head_width <= _WORD and 10 ** _int_digits(f) * len(f.prefixes) <= _HEAD_ENTRIES
 
 
+#: Layout tables kept per process (keyed by immutable layout values; each is
+#: read-only): a library of small files would otherwise rebuild the same
+#: 10,000-entry tables for every file. Bounded: a handful of layouts exist.
+_TABLE_CACHE = 256
+
+
+@lru_cache(maxsize=_TABLE_CACHE)
 def _head_table(k: int, prefixes: tuple[str, ...]) -> tuple[int, np.ndarray]:
     """Every integer part of a field with ``k`` digits and these prefixes, as
     packed uint64 words indexed by ``value + 10**k * prefix code``; rendered
-    once through the general (mask) path."""
+    once through the general (mask) path. Cached, read-only."""
     head = Int(k, prefixes)
     values = np.tile(np.arange(10 ** k, dtype=np.int64), len(prefixes))
     codes = np.repeat(np.arange(len(prefixes)), 10 ** k)
     text = Row([head], lookup=False).render([(values, codes)])[:, -head.width - 1:-1]
     packed = np.zeros((len(values), _WORD), dtype=np.uint8)
     packed[:, :head.width] = text
-    return head.width, packed.view("<u8").ravel()
+    return head.width, _read_only(packed.view("<u8").ravel())
+
+
+def _read_only(array: np.ndarray) -> np.ndarray:
+    """``array``, made read-only (a cached table shared by every later call)."""
+    array.flags.writeable = False
+    return array
 
 
 def _pad_slot(fields: Sequence[Field]) -> int:
@@ -385,12 +400,15 @@ def _pad_slot(fields: Sequence[Field]) -> int:
     return 0
 
 
-def _prefix_masks(first: int, k: int, prefixes: Sequence[str]) -> list[tuple[int, np.ndarray]]:
+@lru_cache(maxsize=_TABLE_CACHE)
+def _prefix_masks(first: int, k: int, prefixes: tuple[str, ...]
+                  ) -> tuple[tuple[int, np.ndarray], ...]:
     """XOR masks for a right-aligned number whose ``k`` zero-padded digits start
     at line column ``first``: per word touched, a uint64 table indexed by
     ``digit count + (k + 1) * prefix code`` that turns the leading '0's into
     spaces and writes the prefix just before the first digit (into the digit
-    columns or the space before them). Built once per layout (tiny)."""
+    columns or the space before them). Built once per layout (tiny); cached,
+    read-only."""
     left = first - max(len(p) for p in prefixes)  # first column of the field
     offset = left % _WORD
     span = -(-(offset + first + k - left) // _WORD) * _WORD  # whole words
@@ -405,12 +423,14 @@ def _prefix_masks(first: int, k: int, prefixes: Sequence[str]) -> list[tuple[int
                 c = lead - len(prefix) + m
                 mask[offset + c - left] = (ZERO if c >= first else SPACE) ^ char
     words = patterns.view("<u8")  # (index, word) from the word holding `left`
-    return [(left // _WORD + j, np.ascontiguousarray(words[:, j]))
-            for j in range(words.shape[1]) if words[:, j].any()]
+    return tuple((left // _WORD + j, _read_only(np.ascontiguousarray(words[:, j])))
+                 for j in range(words.shape[1]) if words[:, j].any())
 
 
-def _text_pieces(f: Text) -> list[tuple[int, int, np.ndarray]]:
-    """The labels as up-to-8-byte pieces: (offset, bytes, uint64 per code)."""
+@lru_cache(maxsize=_TABLE_CACHE)
+def _text_pieces(f: Text) -> tuple[tuple[int, int, np.ndarray], ...]:
+    """The labels as up-to-8-byte pieces: (offset, bytes, uint64 per code);
+    cached, read-only."""
     width = f.width
     padded = [s.rjust(width) if f.right else s.ljust(width) for s in f.labels]
     raw = np.frombuffer("".join(padded).encode("ascii"), dtype=np.uint8)
@@ -420,8 +440,8 @@ def _text_pieces(f: Text) -> list[tuple[int, int, np.ndarray]]:
         chunk = np.zeros((len(padded), _WORD), dtype=np.uint8)
         nbytes = min(_WORD, width - offset)
         chunk[:, :nbytes] = raw[:, offset:offset + nbytes]
-        pieces.append((offset, nbytes, chunk.view("<u8").ravel()))
-    return pieces
+        pieces.append((offset, nbytes, _read_only(chunk.view("<u8").ravel())))
+    return tuple(pieces)
 
 
 def _check_fits(values: np.ndarray, digits: int) -> None:
