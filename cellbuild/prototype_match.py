@@ -302,10 +302,14 @@ def match_prototype(structure, *, pattern: str | None = None) -> tuple[dict | No
     mixed sublattice's ``species`` then joins its elements with ``+`` and
     ``occupants`` gives its atoms per element.
     """
-    found, why = _match(structure, pattern)
+    if int(np.count_nonzero(structure.counts())) < 2:
+        return None, None
+    # one neighbour search serves the match and the grouping of the same atoms
+    sample = _sample(structure, _reach())
+    found, why = _match(structure, pattern, sample)
     if found is not None:
         return found, why
-    mixed = _mixed_match(structure, pattern)
+    mixed = _mixed_match(structure, pattern, sample)
     if mixed is not None:
         return mixed, None
     counts = structure.counts()
@@ -333,10 +337,12 @@ SAME_SURROUNDINGS = 0.5
 FIRST_SHELL_MARGIN = 1.15
 
 
-def element_groups(structure) -> list[list[str]]:
+def element_groups(structure, sample: _Sample | None = None) -> list[list[str]]:
     """The structure's elements grouped by their first-neighbour surroundings (see
-    :data:`SAME_SURROUNDINGS`), each group in type order, groups by first member."""
-    sample = _sample(structure, _reach())
+    :data:`SAME_SURROUNDINGS`), each group in type order, groups by first member.
+    ``sample``: the structure's neighbour sample, when already drawn."""
+    if sample is None:
+        sample = _sample(structure, _reach())
     finite = sample.nearest[np.isfinite(sample.nearest)]
     if finite.size == 0:
         return [[e] for e in sample.elements]
@@ -357,12 +363,13 @@ def element_groups(structure) -> list[list[str]]:
     return [[sample.elements[e] for e in g] for g in groups]
 
 
-def _mixed_match(structure, pattern: str | None) -> dict | None:
+def _mixed_match(structure, pattern: str | None, sample: _Sample | None = None
+                 ) -> dict | None:
     """The prototype of ``structure`` with each group of :func:`element_groups`
     taken as one species, or None when no group holds two elements or none fits."""
     from .structure import Structure
 
-    groups = element_groups(structure)
+    groups = element_groups(structure, sample)
     if len(groups) < 2 or all(len(g) == 1 for g in groups):
         return None
     group_of = np.zeros(len(structure.symbols), dtype=np.int32)
@@ -382,14 +389,17 @@ def _mixed_match(structure, pattern: str | None) -> dict | None:
     return found
 
 
-def _match(structure, pattern: str | None) -> tuple[dict | None, str | None]:
+def _match(structure, pattern: str | None, sample: _Sample | None = None
+           ) -> tuple[dict | None, str | None]:
+    """Best prototype of ``structure`` (``sample``: its neighbour sample, if drawn)."""
     present = int(np.count_nonzero(structure.counts()))
     if present < 2:
         return None, None
     refs = [r for r in references() if len(r.sublattices) >= present]
     if not refs:
         return None, f"no prototype has {present} sublattices"
-    sample = _sample(structure, _reach())
+    if sample is None:
+        sample = _sample(structure, _reach())
     candidates = []
     for ref in refs:
         for mapping in product(range(present), repeat=len(ref.sublattices)):
