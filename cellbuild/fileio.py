@@ -174,7 +174,8 @@ def is_inside(path: str | os.PathLike, root: str | os.PathLike) -> bool:
 
 def is_within(path: str | os.PathLike, root: str | os.PathLike) -> bool:
     """Whether ``path`` is ``root`` or inside it, symbolic links resolved."""
-    return os.path.realpath(path) == os.path.realpath(root) or is_inside(path, root)
+    real, top = os.path.realpath(path), os.path.realpath(root)  # once each: realpath is slow
+    return real == top or os.path.commonpath([real, top]) == top
 
 
 class StagedFiles:
@@ -206,6 +207,8 @@ class StagedFiles:
         self.root = root
         self.sync = sync
         self._staged: list[tuple[str, Path]] = []
+        #: folders found inside ``root`` while staging; :meth:`commit` checks again
+        self._inside: set[Path] = set()
 
     def __enter__(self) -> "StagedFiles":
         return self
@@ -217,7 +220,9 @@ class StagedFiles:
     def writer(self, path: str | os.PathLike) -> Iterator[BinaryIO]:
         """A binary handle for ``path``'s content, staged until :meth:`commit`."""
         target = Path(path)
-        self._check_root(target)
+        if target.parent not in self._inside:  # a structure's files share one folder
+            self._check_root(target)
+            self._inside.add(target.parent)
         fd, tmp_name = _stage(target)
         self._staged.append((tmp_name, target))  # at once: discard() must know it
         with os.fdopen(fd, "wb", buffering=1 << 20) as handle:
@@ -240,8 +245,9 @@ class StagedFiles:
         ``replace`` is off, or a move fails; the targets are then as before.
         """
         staged = list(self._staged)
+        folders: set[Path] = set()
         for _, target in staged:
-            self._check_target(target)
+            self._check_target(target, folders)
         if self.replace:
             _commit_replacing(staged)
         else:
@@ -261,14 +267,20 @@ class StagedFiles:
             raise InputError(f"lies outside {self.root} (through a symbolic link)",
                              file=str(target), hint="remove the link or write elsewhere")
 
-    def _check_target(self, target: Path) -> None:
-        self._check_root(target)
+    def _check_target(self, target: Path, folders: set[Path]) -> None:
+        """Check one target at commit; its folder only if not in ``folders`` (the
+        folders this commit has checked already, which it extends)."""
         parent = target.parent
+        if parent not in folders:
+            self._check_root(target)
         if os.path.isdir(target) and not os.path.islink(target):
             raise InputError("is a folder, so the new file cannot take its place",
                              file=str(target), hint="move the folder away or choose another name")
-        if not os.access(parent, os.W_OK | os.X_OK):
-            raise InputError("cannot be written: its folder is not writable", file=str(target))
+        if parent not in folders:
+            if not os.access(parent, os.W_OK | os.X_OK):
+                raise InputError("cannot be written: its folder is not writable",
+                                 file=str(target))
+            folders.add(parent)
         if not self.replace and os.path.lexists(target):
             raise _exists(target)
 

@@ -15,6 +15,7 @@ import stat
 import pytest
 
 from cellbuild import fileio
+from cellbuild.errors import InputError
 from cellbuild.fileio import StagedFiles, atomic_writer, sync_files, write_bytes_atomic
 
 
@@ -105,3 +106,48 @@ def test_a_folder_that_cannot_be_synced_is_skipped_but_a_disk_error_is_not(tmp_p
     with pytest.raises(OSError) as caught:
         sync_files(written)
     assert caught.value.errno == errno.EIO
+
+
+# --------------------------------------------------------- folder checks done once, same answers
+
+
+def _old_is_within(path, root) -> bool:
+    """The definition before the check was made cheaper (realpath four times)."""
+    real, top = os.path.realpath(path), os.path.realpath(root)
+    inside = real != top and os.path.commonpath([real, top]) == top
+    return os.path.realpath(path) == os.path.realpath(root) or inside
+
+
+def test_is_within_answers_as_before(tmp_path):
+    """POSIX path resolution (realpath(3)): links resolved, `..` after them."""
+    from cellbuild.fileio import is_within
+
+    root = tmp_path / "root"
+    (root / "a" / "b").mkdir(parents=True)
+    (tmp_path / "out").mkdir()
+    (root / "up").symlink_to(tmp_path / "out")
+    (root / "self").symlink_to(root)
+    (tmp_path / "rootx").mkdir()  # shares a prefix with root, lies outside it
+    cases = [root, root / "a", root / "a" / "b", root / "up", root / "self", root / "self" / "a",
+             root / "a" / ".." / "..", tmp_path / "rootx", tmp_path, root / "missing" / "x",
+             root / "up" / ".." / "root"]
+    answers = [is_within(path, root) for path in cases]
+    assert answers == [_old_is_within(path, root) for path in cases]
+    assert answers[:3] == [True, True, True] and answers[3] is False and answers[8] is False
+
+
+def test_a_link_swapped_in_after_writing_is_still_refused_at_commit(tmp_path):
+    """The folder check while staging is done once per folder; the commit checks
+    again, so a folder replaced by a link out of root meanwhile is refused."""
+    root = tmp_path / "root"
+    (root / "sub").mkdir(parents=True)
+    outside = tmp_path / "outside"
+    outside.mkdir()
+    with pytest.raises(InputError, match="outside"):
+        with StagedFiles(root=root) as staged:
+            staged.write_bytes(root / "sub" / "x.lmp", b"data")
+            staged.write_bytes(root / "sub" / "y.lmp", b"data")
+            os.rename(root / "sub", tmp_path / "moved")
+            (root / "sub").symlink_to(outside)
+            staged.commit()
+    assert list(outside.iterdir()) == []
