@@ -106,11 +106,7 @@ def apply(plan: Plan, perfect: Structure, placements: list[Placement], *,
         else:  # a substitution or one side of an antisite pair
             species[index] = symbols.index(p.element)
     if grouped and not new_sites:
-        kept = np.flatnonzero(keep)
-        if not np.all(species[kept[1:]] >= species[kept[:-1]]):
-            kept = kept[np.argsort(species[kept], kind="stable")]
-        return Structure(perfect.cell, perfect.positions[kept], species[kept], symbols,
-                         perfect.site[kept])
+        return _kept_grouped(perfect, species, keep)
     positions, site = perfect.positions[keep], perfect.site[keep]
     species = species[keep]
     if new_sites:
@@ -122,6 +118,39 @@ def apply(plan: Plan, perfect: Structure, placements: list[Placement], *,
         site = np.concatenate([site, extra])
     result = Structure(perfect.cell, positions, species, symbols, site)
     return result.grouped_by_species() if grouped else result
+
+
+#: Atoms per chunk of :func:`_kept_grouped` (its temporaries stay in cache).
+_CHUNK_ATOMS = 1 << 18
+
+
+def _kept_grouped(perfect: Structure, species: np.ndarray, keep: np.ndarray) -> Structure:
+    """The atoms of ``perfect`` where ``keep``, with ``species``, reordered by
+    species code (stable), as ``Structure.grouped_by_species`` orders them.
+
+    A stable partition in chunks: each chunk's atoms of each species go to the
+    next free rows of that species' block, so no array of atom indices as long
+    as the structure is made (a 10M-atom build peaked 0.3 GB higher with one).
+    """
+    n_codes = len(perfect.symbols)
+    per_code = np.bincount(species[keep], minlength=n_codes)
+    starts = np.concatenate([[0], np.cumsum(per_code)[:-1]])
+    n = int(per_code.sum())
+    positions = np.empty((n, 3), dtype=perfect.positions.dtype)
+    codes = np.empty(n, dtype=species.dtype)
+    site = np.empty(n, dtype=perfect.site.dtype)
+    for begin in range(0, perfect.n_atoms, _CHUNK_ATOMS):
+        part = slice(begin, min(begin + _CHUNK_ATOMS, perfect.n_atoms))
+        chunk_species = species[part]
+        chunk_keep = keep[part]
+        for code in np.flatnonzero(per_code).tolist():
+            rows = np.flatnonzero(chunk_keep & (chunk_species == code)) + begin
+            end = starts[code] + len(rows)
+            positions[starts[code]:end] = perfect.positions[rows]
+            codes[starts[code]:end] = code
+            site[starts[code]:end] = perfect.site[rows]
+            starts[code] = end
+    return Structure(perfect.cell, positions, codes, perfect.symbols, site)
 
 
 class _Picker:

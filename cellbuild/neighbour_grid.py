@@ -100,6 +100,9 @@ def locate_grid(cell, positions, tol=1e-6) -> GridSites | None:
     if n == 0:
         return None
     origin = positions[0]
+    if n <= _LOCATE_CHUNK:  # one chunk: the fractional coordinates of all atoms at once
+        located = _find_grid_sites(cell, _wrapped_fractional(cell, positions - origin), tol)
+        return None if located is None else GridSites(located[0], located[1], cell, positions)
     sample = _wrapped_fractional(
         cell, positions[np.random.default_rng(0).integers(0, n, _GRID_SAMPLE)] - origin)
     grid = _detect_grid(cell, sample, tol)
