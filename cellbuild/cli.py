@@ -102,7 +102,8 @@ def make(
     """Build each recipe, audit it and write its files and NAME.report.json."""
     from collections import Counter
 
-    from .pipeline import build, check_outputs_free, make as make_one
+    from .pipeline import REUSE_MEMORY_ATOMS, build, check_outputs_free, make as make_one
+    from .pipeline import reuse_freed_memory
     from .build import resolve
 
     with _bad_input_exits(out):
@@ -112,9 +113,10 @@ def make(
         if dup:
             raise InputError("is used by more than one recipe", key="name", value=dup,
                              hint="give each recipe its own name")
-        for r in loaded:  # refuse every bad recipe before writing anything
-            resolve(r, strict=strict)
+        atoms = max(resolve(r, strict=strict).n_atoms for r in loaded)  # refuse bad recipes first
         check_outputs_free(loaded, out, force)
+        if atoms >= REUSE_MEMORY_ATOMS:  # this process ends after the build: keep freed pages
+            reuse_freed_memory()
         if len(loaded) > 1:
             # placement can still refuse (min_separation): place every recipe's
             # defects once before the first file is written

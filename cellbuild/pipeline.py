@@ -65,8 +65,6 @@ def build(recipe: Recipe, *, strict: bool = False, progress: Progress | None = N
     """Resolve, build the perfect supercell and place the defects (no files)."""
     note = progress or (lambda phase: None)
     plan = resolve(recipe, strict=strict)
-    if plan.n_atoms >= _REUSE_MEMORY_ATOMS:
-        reuse_freed_memory()
     note("build")
     perfect = build_perfect(plan)
     note("defects")
@@ -104,9 +102,9 @@ def build(recipe: Recipe, *, strict: bool = False, progress: Progress | None = N
     return Built(plan, structure, placements, facts, configuration, ideal, distortion, free)
 
 
-#: Atoms from which :func:`build` asks the allocator to keep freed memory
+#: Atoms from which `cellbuild make` asks the allocator to keep freed memory
 #: (:func:`reuse_freed_memory`); smaller builds never allocate large arrays.
-_REUSE_MEMORY_ATOMS = 500_000
+REUSE_MEMORY_ATOMS = 500_000
 
 
 def reuse_freed_memory() -> None:
@@ -121,8 +119,10 @@ def reuse_freed_memory() -> None:
     numpy's huge-page advice off, freed arrays come back from the heap: 1.0 s
     of system time, the peak resident memory about 25 % higher (fragments of
     the heap are reused less tightly), and memory freed by a large build stays
-    with the process until it exits. Process-wide settings, applied by
-    :func:`build` from :data:`_REUSE_MEMORY_ATOMS` atoms; idempotent.
+    with the process until it exits. Process-wide settings, so the library
+    never applies them on its own: the `make` command (a process that ends
+    after the build) does, from :data:`REUSE_MEMORY_ATOMS` atoms; a Python
+    program may call this itself. Idempotent.
     """
     import ctypes
 
