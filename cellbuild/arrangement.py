@@ -204,7 +204,7 @@ def neighbour_table(crystal, repeat, label: str, n_shells: int):
             # a site's own image (a cell shorter than the shell) is no bond to swap across
             table[k, rows, fill[rows]] = np.where(partner == rows, -1, partner)
             fill[rows] += 1
-    return ids, table, distances
+    return ids, table, list(distances)
 
 
 def arrange(plan, perfect, placements, rng: np.random.Generator, progress=None):

@@ -19,6 +19,7 @@ Interstitial atoms take no part.
 from __future__ import annotations
 
 import math
+from functools import lru_cache
 from itertools import product
 
 import numpy as np
@@ -30,10 +31,16 @@ SHELLS = 3
 VACANCY = "Va"
 
 
+@lru_cache(maxsize=64)
 def sublattice_shells(crystal, label: str, n_shells: int = SHELLS):
     """(distances in Angstrom, offsets per shell): the first ``n_shells`` distances
     between sites of sublattice ``label`` and, for each, the ``(s, (di, dj, dk), t)``
-    pairs of grid sites of that sublattice at that distance."""
+    pairs of grid sites of that sublattice at that distance (tuples, read-only).
+
+    Cached per crystal object (crystals are frozen, compared by identity, and
+    resolved once per process): a library of many structures of one crystal
+    finds its shells once, not per structure.
+    """
     sites = [i for i, lb in enumerate(crystal.sublattice) if lb == label]
     frac = crystal.site_frac[sites]
     cell = crystal.cell
@@ -51,9 +58,9 @@ def sublattice_shells(crystal, label: str, n_shells: int = SHELLS):
     shells = []
     for r in distances:
         c, s, t = np.nonzero(np.abs(d - r) < 2 * scale)
-        shells.append([(sites[int(a)], tuple(int(x) for x in cells[int(ci)]), sites[int(b)])
-                       for ci, a, b in zip(c, s, t)])
-    return distances, shells
+        shells.append(tuple((sites[int(a)], tuple(int(x) for x in cells[int(ci)]), sites[int(b)])
+                            for ci, a, b in zip(c, s, t)))
+    return tuple(distances), tuple(shells)
 
 
 def alpha_table(counts, names, conc, present=None) -> dict:
@@ -107,7 +114,7 @@ def warren_cowley(structure, crystal, repeat: tuple[int, int, int],
             pair_counts.append(half + half.T)
         pair_counts = np.array(pair_counts)
         alphas = alpha_table(pair_counts[:, :m, :m], structure.symbols, conc, present)
-        out[label] = {"shells": distances,
+        out[label] = {"shells": list(distances),
                       "concentration": {structure.symbols[e]: float(conc[e]) for e in present},
                       "alpha": alphas, "vacancies": None}
         if on_sites[m]:
