@@ -194,7 +194,12 @@ def _start_worker() -> None:
     signal.signal(signal.SIGINT, _terminate_worker)
     for variable in _THREAD_VARIABLES:
         os.environ.setdefault(variable, "1")
-    import cellbuild.pipeline  # noqa: F401 -- import once per worker, not per job
+    try:
+        import cellbuild.pipeline  # noqa: F401 -- import once per worker, not per job
+    except (Terminated, KeyboardInterrupt):
+        # stopped while starting: nothing staged yet, so nothing to clean up; end
+        # quietly (the pool would print the interrupted import as a traceback)
+        os._exit(128 + signal.SIGTERM)
 
 
 @contextlib.contextmanager
