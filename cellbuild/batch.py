@@ -37,6 +37,9 @@ from .pool import build_job, default_workers, run_jobs, sigterm_as_interrupt  # 
 if TYPE_CHECKING:
     from .executors import Executor
 
+#: When `batch` flushes written files to the disk (``--sync``).
+SYNC_CHOICES = ("file", "end")
+
 #: Temporaries of these files in OUT are ours (``.NAME.lmp.XXXXXXXX.part`` ...).
 TEMPORARY_TARGETS = OUTPUT_SUFFIXES + (MANIFEST_NAME,)
 
@@ -121,8 +124,11 @@ def make_source(path: Path, source_root: Path, manifest_dir: Path,
 # ----------------------------------------------------------------------------- planning
 
 
-def plan_jobs(sources: Sequence[Source], out_root: Path) -> tuple[list[Job], list[Outcome]]:
+def plan_jobs(sources: Sequence[Source], out_root: Path,
+              sync: bool = True) -> tuple[list[Job], list[Outcome]]:
     """Expand every recipe into jobs; recipes that cannot be expanded become error outcomes.
+
+    ``sync`` goes to every job (see :attr:`cellbuild.outcomes.Job.sync`).
 
     A structure whose files would land on a path already claimed by an earlier
     structure (in recipe-path, then sweep order) becomes an error outcome too.
@@ -154,7 +160,8 @@ def plan_jobs(sources: Sequence[Source], out_root: Path) -> tuple[list[Job], lis
                 continue
             owner = f"`{point.name}` ({source.recipe})"
             claimed.update((p.casefold(), owner) for p in paths)
-            jobs.append(Job(point.name, source, sha, point.values, point.recipe, str(out_dir)))
+            jobs.append(Job(point.name, source, sha, point.values, point.recipe, str(out_dir),
+                            sync))
     return jobs, failed
 
 
@@ -190,6 +197,7 @@ def _fallback_name(source: Source) -> str:
 
 def build_library(source_dir: str | os.PathLike, out: str | os.PathLike, *,
                   workers: int | None = None, executor: "Executor | None" = None,
+                  sync: str = "file",
                   on_done: Callable[[Outcome], None] | None = None,
                   on_planned: Callable[[int], None] | None = None) -> BatchResult:
     """Build every recipe under ``source_dir`` into ``out`` and write ``out/manifest.json``.
@@ -205,6 +213,13 @@ def build_library(source_dir: str | os.PathLike, out: str | os.PathLike, *,
     pool of ``workers`` processes, every core if None). It is asked first
     whether all its workers can see ``out``.
 
+    ``sync`` says when the files are flushed to the disk (:data:`SYNC_CHOICES`):
+    ``"file"`` each file before it takes its name; ``"end"`` all of them once,
+    after the last structure and before the manifest (which vouches for them)
+    is written. Either way each file appears whole; they differ only after a
+    power cut or a crash of the machine, where ``end`` may leave files written
+    since the start empty, with no new manifest listing them.
+
     Raises :class:`InputError` before anything is built if ``source_dir`` is
     not a folder holding recipes, is not inside ``out``'s parent folder (the
     library could not be verified), or ``out``, its manifest or a folder in it
@@ -217,6 +232,9 @@ def build_library(source_dir: str | os.PathLike, out: str | os.PathLike, *,
     if not source_dir.is_dir():
         raise InputError("is not a folder", key="DIR", value=str(source_dir),
                          hint="give the folder that holds the recipes")
+    if sync not in SYNC_CHOICES:
+        raise InputError("must be one of " + ", ".join(SYNC_CHOICES), key="--sync", value=sync,
+                         hint="`file` flushes each file, `end` all files once at the end")
     if executor is None:
         from .executors import LocalPool
 
@@ -233,7 +251,7 @@ def build_library(source_dir: str | os.PathLike, out: str | os.PathLike, *,
     executor.check_shared(out, "--out")  # before anything is created in OUT
     ensure_output_dir(out)
     previous = previous_outputs(manifest_path)
-    jobs, failed = plan_jobs(sources, out)
+    jobs, failed = plan_jobs(sources, out, sync=sync == "file")
     _check_job_folders(jobs, out)
     temporaries = remove_temporaries(out, TEMPORARY_TARGETS)
     if on_planned:
@@ -249,6 +267,10 @@ def build_library(source_dir: str | os.PathLike, out: str | os.PathLike, *,
     outcomes = sort_outcomes(failed + built)
     manifest = make_manifest(outcomes, source=_relative(source_dir, out))
     removed = remove_stale(out, previous, manifest)
+    if sync == "end":  # before the manifest that vouches for them
+        from .fileio import sync_files
+
+        sync_files(out / path for path in sorted(listed_paths(manifest)))
     write_manifest(manifest_path, manifest)
     return BatchResult(outcomes, manifest, manifest_path, removed, temporaries, lost,
                        executor.description, executor.kind)

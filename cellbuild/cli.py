@@ -198,6 +198,9 @@ def batch(
     db: Optional[str] = typer.Option(None, "--db", metavar="DB",
                                      help="Also write every structure into an ASE database (NAME.db or a URL)."),
     scheduler: Optional[str] = typer.Option(None, "--scheduler", metavar="ADDRESS", help=SCHEDULER_HELP),
+    sync: str = typer.Option("file", "--sync", metavar="file|end",
+                             help="Flush each file to disk as it is written (file), or all files "
+                                  "once before the manifest (end: faster on a busy disk)."),
 ) -> None:
     """Build every recipe under DIR (every sweep point) in parallel into OUT.
 
@@ -224,8 +227,8 @@ def batch(
             from .executors import open_executor
 
             with open_executor(scheduler, workers) as executor:
-                result = build_library(source, out, executor=executor, on_done=on_done,
-                                       on_planned=bar.planned if bar else None)
+                result = build_library(source, out, executor=executor, sync=sync,
+                                       on_done=on_done, on_planned=bar.planned if bar else None)
             if junit is not None:
                 write_junit(junit, result.outcomes)
     finally:

@@ -44,6 +44,8 @@ class Job:
     sweep: dict
     recipe: object  # cellbuild.recipe.Recipe (kept untyped: no import at module load)
     out_dir: str
+    #: flush each file before it takes its name (False: the caller syncs them all at the end)
+    sync: bool = True
 
 
 @dataclass(frozen=True)

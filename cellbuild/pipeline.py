@@ -184,8 +184,12 @@ def ensure_output_dir(out_dir: str | os.PathLike) -> None:
 
 def make(recipe: Recipe, out_dir: str | os.PathLike, *, force: bool = False,
          strict: bool = False, recipe_sha256: str | None = None,
-         progress: Progress | None = None, workers: int = 2) -> Result:
+         progress: Progress | None = None, workers: int = 2, sync: bool = True) -> Result:
     """Build, audit and write one recipe; returns the result (report written too).
+
+    ``sync``: flush each file to the disk before it takes its name (the
+    default); ``False`` leaves that to the caller (:func:`cellbuild.fileio.sync_files`
+    once over many structures' files, as ``batch --sync end`` does).
 
     Raises :class:`InputError` before writing anything if the recipe cannot be
     built or the outputs cannot be written.
@@ -199,7 +203,7 @@ def make(recipe: Recipe, out_dir: str | os.PathLike, *, force: bool = False,
     # all files appear together or none do; without force, every name is claimed
     # exclusively, so a second run racing for the same names refuses instead of replacing
     options = WriteOptions(recipe.kpoints, recipe.espresso, built.free)
-    with StagedFiles(replace=force, root=out_dir) as staged:
+    with StagedFiles(replace=force, root=out_dir, sync=sync) as staged:
         # The structure files do not depend on the audit: a large structure's are
         # formatted and written in a second thread while the audit runs (numpy
         # releases the GIL in both). A failed audit leaves the with-block after

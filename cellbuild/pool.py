@@ -63,7 +63,7 @@ def build_job(job: Job) -> Outcome:
         # workers=1: the pool already uses every core; a second level of
         # threads in the neighbour search would only oversubscribe them.
         result = make(job.recipe, job.out_dir, force=True, recipe_sha256=job.recipe_sha256,
-                      workers=1)
+                      workers=1, sync=job.sync)
     except InputError as exc:
         return _input_error(job, exc, time.perf_counter() - start)
     except OSError as exc:

@@ -122,7 +122,8 @@ def verify(manifest_path: str | os.PathLike, *, workers: int | None = None,
     except OSError as exc:
         raise _scratch_error(scratch, exc.strerror or str(exc), key) from None
     with tmp_dir as tmp, sigterm_as_interrupt():
-        jobs, failed = plan_jobs(sources, Path(tmp))
+        # the rebuild is compared and thrown away: no flush to the disk needed
+        jobs, failed = plan_jobs(sources, Path(tmp), sync=False)
         if jobs:
             executor.check_shared(Path(tmp), key)
         if on_planned:
