@@ -80,7 +80,7 @@ def timed(module, name):
         finally:
             steps[name] = steps.get(name, 0.0) + time.perf_counter() - start
     setattr(module, name, wrapper)
-for name in ("pair_distribution", "_closest_pairs", "match_lattice", "match_prototype",
+for name in ("pair_distribution", "_pair_distribution", "_closest_pairs", "match_lattice", "match_prototype",
              "_pairs_below", "_crowded_neighbours", "order_of_file", "space_group",
              "typical_spacing", "_typical_spacing", "find_shells", "infer_defects"):
     timed(I, name)

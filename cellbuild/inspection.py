@@ -55,7 +55,8 @@ from .errors import InputError
 from .lattice_match import (CROWDED_FRACTION, PATTERN_NAMES, LatticeMatch, defects_note,
                             first_shell, infer_defects, match_lattice, patterns,
                             site_count_reliable)
-from .pair_shells import PairDistribution, find_shells, pair_distribution
+from .pair_shells import (MAX_SAMPLED_PAIRS, SHELL_RANGE, PairDistribution, find_shells,
+                          pair_distribution)
 from .inspect_text import describe  # noqa: F401  (the text summary, importable from here)
 from .inspection_checks import (expected_lattice_check, min_distance_check,
                                 physical_spacing_check, potential_cutoff_check,
@@ -152,21 +153,24 @@ def _analyse(structure, file, cutoff, expect, potential_cutoff, workers, source,
     cell, positions = structure.cell, structure.positions
     volume, n = structure.volume, structure.n_atoms
     spacing = (volume / n) ** (1.0 / 3.0)
-    distribution = pair_distribution(structure, spacing, workers)
+    # every neighbour search below shares its cell lists and fractional coordinates
+    near = neighbours.Neighbourhood(cell, positions)
+    distribution = _pair_distribution(structure, spacing, workers, near)
     shells, boundaries = find_shells(distribution, spacing)
     threshold, threshold_source = _distance_threshold(shells)
     _refuse_overlap(distribution, threshold, n, file)
-    ci, cj, cd = _closest_pairs(structure, distribution, workers)
+    ci, cj, cd = _closest_pairs(structure, distribution, workers, near)
     cut, cut_source = _choose_cutoff(cutoff, boundaries, spacing)
     if cutoff is not None:
         _refuse_cutoff(structure, distribution, cutoff)
     counts = neighbours.coordination_counts(cell, positions, cut, workers=workers)
     first = first_shell(distribution.distances, shells, boundaries)
     match, match_info = match_lattice(counts, shells, first, distribution, volume, n)
-    prototype, prototype_note = match_prototype(structure, pattern=match.name if match else None)
+    prototype, prototype_note = match_prototype(structure, pattern=match.name if match else None,
+                                                near=near)
 
     crowded_r = CROWDED_FRACTION * match.nearest if match else 0.0
-    pi, pj, pd = _pairs_below(structure, max(threshold, crowded_r), float(cd[0]), workers)
+    pi, pj, pd = _pairs_below(structure, max(threshold, crowded_r), float(cd[0]), workers, near)
 
     result = {"file": file, **(source or {})}
     result.update(_cell_facts(structure))
@@ -183,17 +187,17 @@ def _analyse(structure, file, cutoff, expect, potential_cutoff, workers, source,
     if match:
         close = pd < crowded_r
         result["defects"] = infer_defects(counts, match, pi, pj, pd, _crowded_neighbours(
-            structure, counts, match, cut, pi[close], pj[close]))
+            structure, counts, match, cut, pi[close], pj[close], near))
         if not site_count_reliable(match, first, n):
             result["defects"]["estimated_vacancies_from_sites"] = None  # see the note
         result["defects"]["note"] = defects_note(shells, result["defects"], match)
     radii = ([r * match.nearest for r in patterns()[match.name].distances[:SRO_SHELLS + 1]]
              if match else None)
-    result["short_range_order"] = order_of_file(structure, prototype, radii)
-    result["space_group"], note = space_group(structure)
+    result["short_range_order"] = order_of_file(structure, prototype, radii, near=near)
+    result["space_group"], note = space_group(structure, frac=near.frac)
     if note:
         result["space_group_note"] = note
-    typical = typical_spacing(structure, distribution, workers)
+    typical = typical_spacing(structure, distribution, workers, near=near)
     result["nearest_neighbour_median"] = typical[0]
     checks = [min_distance_check(cd, ci, cj, pd, threshold, threshold_source),
               physical_spacing_check(structure, (float(cd[0]), int(ci[0]), int(cj[0])),
@@ -238,8 +242,22 @@ def _refuse_cutoff(structure: Structure, distribution: PairDistribution, cutoff:
                          hint="give a cutoff of a few neighbour shells")
 
 
+def _pair_distribution(structure: Structure, spacing: float, workers: int,
+                       near: neighbours.Neighbourhood) -> PairDistribution:
+    """:func:`cellbuild.pair_shells.pair_distribution` with the structure's
+    Neighbourhood, so that its cell list serves the later searches at r_max."""
+    n = structure.n_atoms
+    r_max = SHELL_RANGE * spacing
+    sample = neighbours.pair_sample(structure.cell, structure.positions, r_max, workers=workers,
+                                    max_pairs=MAX_SAMPLED_PAIRS, near=near)
+    # every pair once (2/N per distance) or each sampled centre's neighbours (1/m)
+    weight = 2.0 / n if sample.centres >= n else 1.0 / sample.centres
+    return PairDistribution(sample.distances, weight, n / structure.volume, r_max)
+
+
 def _crowded_neighbours(structure: Structure, counts: np.ndarray, match: LatticeMatch,
-                        cut: float, close_i: np.ndarray, close_j: np.ndarray):
+                        cut: float, close_i: np.ndarray, close_j: np.ndarray,
+                        near: neighbours.Neighbourhood | None = None):
     """(i, j, distance) with j within the cutoff of a crowded atom i (more than
     the ideal coordination, or in a close pair ``close_i``/``close_j``); None
     when there are too many such atoms to examine."""
@@ -250,7 +268,7 @@ def _crowded_neighbours(structure: Structure, counts: np.ndarray, match: Lattice
     if centres.size > MAX_CROWDED_EXAMINED:
         return None
     try:
-        return neighbours.pairs_of(structure.cell, structure.positions, centres, cut)
+        return neighbours.pairs_of(structure.cell, structure.positions, centres, cut, near=near)
     except neighbours.PairLimitError:
         return None
 
@@ -268,7 +286,8 @@ def _choose_cutoff(cutoff: float | None, boundaries: list[float],
                                        f"{FALLBACK_CUTOFF} x (V/N)^(1/3)")
 
 
-def _closest_pairs(structure: Structure, distribution: PairDistribution, workers: int):
+def _closest_pairs(structure: Structure, distribution: PairDistribution, workers: int,
+                   near: neighbours.Neighbourhood | None = None):
     """The ``CLOSEST_PAIRS_LISTED`` shortest pairs (i, j, d), exactly.
 
     The shortest sampled distance bounds the true minimum from above, so all
@@ -278,18 +297,20 @@ def _closest_pairs(structure: Structure, distribution: PairDistribution, workers
     if distribution.distances.size:
         r = float(distribution.distances[0]) * (1.0 + 1e-9) + 1e-12
         i, j, d = neighbours.close_pairs(cell, positions, r, workers=workers,
-                                         limit=CLOSEST_PAIRS_LISTED)
+                                         limit=CLOSEST_PAIRS_LISTED, near=near)
         if d.size:
             return i, j, d
     d, i, j = neighbours.min_distance(cell, positions, workers=workers)
     return np.array([i]), np.array([j]), np.array([d])
 
 
-def _pairs_below(structure: Structure, r: float, shortest: float, workers: int):
+def _pairs_below(structure: Structure, r: float, shortest: float, workers: int,
+                 near: neighbours.Neighbourhood | None = None):
     """All pairs closer than ``r`` (A); skips the search when the shortest is not."""
     if shortest >= r or r <= 0.0:
         return np.zeros(0, np.int64), np.zeros(0, np.int64), np.zeros(0)
-    return neighbours.close_pairs(structure.cell, structure.positions, r, workers=workers)
+    return neighbours.close_pairs(structure.cell, structure.positions, r, workers=workers,
+                                  near=near)
 
 
 def _distance_threshold(shells: list[dict]) -> tuple[float, str]:

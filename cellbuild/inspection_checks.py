@@ -18,16 +18,18 @@ SPACING_SAMPLE = 2000
 
 
 def typical_spacing(structure: Structure, distribution: PairDistribution,
-                     workers: int) -> tuple[float | None, int, int]:
+                     workers: int, near: neighbours.Neighbourhood | None = None
+                     ) -> tuple[float | None, int, int]:
     """(median nearest-neighbour distance over a seeded sample of atoms, atom, its
     neighbour) for the median atom; (None, -1, -1) when no sampled atom has a
-    neighbour within the distribution's reach."""
+    neighbour within the distribution's reach. ``near``: the structure's
+    Neighbourhood (its cell list at the distribution's reach)."""
     n = structure.n_atoms
     sample = np.arange(n) if n <= SPACING_SAMPLE else np.sort(
         np.random.default_rng(0).choice(n, size=SPACING_SAMPLE, replace=False))
     d, partner = neighbours.nearest_neighbours(structure.cell, structure.positions,
                                                distribution.r_max, centres=sample,
-                                               workers=workers)
+                                               workers=workers, near=near)
     found = np.flatnonzero(np.isfinite(d))
     if found.size * 2 < sample.size:
         return None, -1, -1

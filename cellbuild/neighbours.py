@@ -55,19 +55,20 @@ from dataclasses import dataclass
 import numpy as np
 
 from .cell_list import (MAX_COUNTED_PAIRS, MAX_LISTED_PAIRS, PairLimitError, _build_bins,
-                        _candidate_counts, _chunks, _collect_distances, _collect_pairs,
-                        _count_chunks, _estimated_pairs, _in_threads, _pairs_in_chunk,
-                        _shortest, uniform_pairs)
+                        _chunks, _collect_distances, _collect_pairs, _count_chunks,
+                        _estimated_pairs, _in_threads, _pairs_in_chunk, _shortest,
+                        _total_half_candidates, uniform_pairs)
 from .cellgeom import (_checked_cell, _checked_positions, _checked_radius, _thread_count,
                        _wrapped_fractional, perpendicular_widths)
 from .neighbour_grid import (MAX_GRID_OFFSETS, MAX_GRID_SITES, GridSites,
                              _count_occupied_offsets, _grid_min_distance,
                              _grid_offsets, _grid_sites, locate_grid)
+from .neighbourhood import REUSE_FACTOR, Neighbourhood
 
 __all__ = ["GridSites", "MAX_COUNTED_PAIRS", "MAX_GRID_OFFSETS", "MAX_GRID_SITES",
            "MAX_LISTED_PAIRS", "PairLimitError", "PairSample", "close_pairs",
            "coordination_counts", "general_counts", "grid_counts", "locate_grid",
-           "min_distance", "nearest_neighbours", "pair_distances", "pair_sample", "pairs_of",
+           "min_distance", "Neighbourhood", "nearest_neighbours", "pair_distances", "pair_sample", "pairs_of",
            "perpendicular_widths", "sampled_centre_count", "uniform_pairs"]
 
 # N atoms in volume V always have a pair (or an atom and an image) closer than
@@ -201,8 +202,8 @@ def min_distance(cell, positions, *, workers=2,
         radius *= 2.0
 
 
-def close_pairs(cell, positions, r, *, workers=2, limit=None, max_pairs=MAX_LISTED_PAIRS
-                ) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
+def close_pairs(cell, positions, r, *, workers=2, limit=None, max_pairs=MAX_LISTED_PAIRS,
+                near: Neighbourhood | None = None) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
     """All pairs closer than ``r`` (Angstrom), sorted by distance.
 
     Returns:
@@ -217,6 +218,9 @@ def close_pairs(cell, positions, r, *, workers=2, limit=None, max_pairs=MAX_LIST
         PairLimitError: (a ValueError) before the search, when there are about
             more than ``max_pairs`` pairs closer than r (without ``limit``), or
             more than MAX_COUNTED_PAIRS to visit (with it).
+
+    ``near``: the structure's :class:`Neighbourhood`, whose cell list for r is
+    used (or built and kept there).
     """
     cell = _checked_cell(cell)
     positions = _checked_positions(positions)
@@ -228,7 +232,7 @@ def close_pairs(cell, positions, r, *, workers=2, limit=None, max_pairs=MAX_LIST
         return empty
     budget = (MAX_COUNTED_PAIRS, "a shortest-pair search handles") if limit is not None \
         else (int(max_pairs), "a pair list holds")
-    bins = _build_bins(cell, positions, r, limit=budget[0])
+    bins = _bins_for(near, cell, positions, r, budget[0])
     chunks = _chunks(bins, half=True, limit=(r, *budget))
     per_thread = _in_threads(
         lambda group: _collect_pairs(bins, group, r * r, limit, most=budget[0]),
@@ -241,13 +245,17 @@ def close_pairs(cell, positions, r, *, workers=2, limit=None, max_pairs=MAX_LIST
     return i[rank], j[rank], np.sqrt(d2[rank])
 
 
-def pairs_of(cell, positions, centres, r, *, max_pairs=MAX_LISTED_PAIRS
-             ) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
+def pairs_of(cell, positions, centres, r, *, max_pairs=MAX_LISTED_PAIRS,
+             near: Neighbourhood | None = None) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
     """Every neighbour (atom or image) closer than ``r`` (A) of the given centres.
 
     Returns ``(i, j, distance)``: i a centre's atom index, j the neighbour's,
     float64 Angstrom, grouped by centre (each neighbour of a centre once per
     image). PairLimitError (a ValueError) beyond ``max_pairs`` pairs.
+
+    ``near``: the structure's :class:`Neighbourhood`; a cell list it holds for up
+    to REUSE_FACTOR x r serves (the same pairs; their order within a centre
+    follows the cell list).
     """
     cell = _checked_cell(cell)
     positions = _checked_positions(positions)
@@ -255,7 +263,7 @@ def pairs_of(cell, positions, centres, r, *, max_pairs=MAX_LISTED_PAIRS
     centres = np.asarray(centres, dtype=np.int64)
     if len(positions) == 0 or len(centres) == 0:
         return np.zeros(0, np.int64), np.zeros(0, np.int64), np.zeros(0)
-    bins = _build_bins(cell, positions, r, limit=math.inf)
+    bins = _bins_for(near, cell, positions, r, math.inf, REUSE_FACTOR)
     chunks = _chunks(bins, half=False, centres=np.sort(bins.rank[centres]),
                      limit=(r, int(max_pairs), "a pair list holds"))
     parts = [_pairs_in_chunk(bins, chunk, r * r, half=False) for chunk in chunks]
@@ -264,12 +272,13 @@ def pairs_of(cell, positions, centres, r, *, max_pairs=MAX_LISTED_PAIRS
     return i, j, np.sqrt(np.concatenate([p[2] for p in parts]))
 
 
-def nearest_neighbours(cell, positions, r, *, centres=None, workers=2
-                       ) -> tuple[np.ndarray, np.ndarray]:
+def nearest_neighbours(cell, positions, r, *, centres=None, workers=2,
+                       near: Neighbourhood | None = None) -> tuple[np.ndarray, np.ndarray]:
     """Nearest neighbour (atom or image) of each centre atom, within ``r`` (A).
 
     Args:
         centres: atom indices to look at (default: every atom).
+        near: the structure's :class:`Neighbourhood` (its cell list for r).
 
     Returns:
         ``(distance, partner)`` per centre: float64 Angstrom (inf when nothing
@@ -284,7 +293,7 @@ def nearest_neighbours(cell, positions, r, *, centres=None, workers=2
     partner = np.full(len(centres), -1, dtype=np.int64)
     if n == 0 or len(centres) == 0:
         return best, partner
-    bins = _build_bins(cell, positions, r)
+    bins = _bins_for(near, cell, positions, r, MAX_COUNTED_PAIRS)
     ranks = bins.rank[centres]
     order = np.argsort(ranks, kind="stable")
     chunks = _chunks(bins, half=False, centres=ranks[order],
@@ -325,7 +334,8 @@ class PairSample:
     centres: int
 
 
-def pair_sample(cell, positions, r_max, *, max_pairs=None, workers=2) -> PairSample:
+def pair_sample(cell, positions, r_max, *, max_pairs=None, workers=2,
+                near: Neighbourhood | None = None) -> PairSample:
     """Distances (Angstrom) of the pairs closer than ``r_max``, sampled when many.
 
     Without sampling each pair (atom-atom or atom-image) is listed once, so a
@@ -342,6 +352,8 @@ def pair_sample(cell, positions, r_max, *, max_pairs=None, workers=2) -> PairSam
     from the pairs actually counted on a sample of centres instead, so the
     result stays near ``max_pairs`` distances however the atoms are placed.
 
+    ``near``: the structure's :class:`Neighbourhood` (its cell list for r_max).
+
     Raises:
         PairLimitError: without ``max_pairs``, when there are more than
             MAX_LISTED_PAIRS pairs.
@@ -353,11 +365,11 @@ def pair_sample(cell, positions, r_max, *, max_pairs=None, workers=2) -> PairSam
     if n == 0:
         return PairSample(np.zeros(0, dtype=np.float64), 0)
     cap = MAX_LISTED_PAIRS if max_pairs is None else int(max_pairs)
-    bins = _build_bins(cell, positions, r_max,
-                       limit=MAX_LISTED_PAIRS if max_pairs is None else math.inf)
+    bins = _bins_for(near, cell, positions, r_max,
+                     MAX_LISTED_PAIRS if max_pairs is None else math.inf)
     m = n if max_pairs is None else sampled_centre_count(cell, n, r_max, max_pairs)
     # candidates the m centres would examine (each pair once when m = N)
-    candidates = float(_candidate_counts(bins, np.arange(n), True).sum())
+    candidates = float(_total_half_candidates(bins))
     if m < n:
         candidates *= 2.0 * m / n
     if candidates > cap:
@@ -402,6 +414,15 @@ def sampled_centre_count(cell, n_atoms, r_max, max_pairs) -> int:
         return n_atoms
     return int(min(n_atoms, max(1, math.ceil(max_pairs / per_atom))))
 
+
+
+def _bins_for(near: Neighbourhood | None, cell: np.ndarray, positions: np.ndarray, r: float,
+              limit: float, reuse: float = 1.0):
+    """The cell list of a query: from ``near`` when it is this structure's (built
+    there once), else a new one."""
+    if near is not None and near.same(cell, positions):
+        return near.bins(r, limit, reuse)
+    return _build_bins(cell, positions, r, limit=limit)
 
 
 def _closest_pair_within(cell: np.ndarray, positions: np.ndarray, radius: float,

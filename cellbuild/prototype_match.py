@@ -141,7 +141,9 @@ class _Sample:
     n_atoms: int
 
 
-def _sample(structure, reach: float) -> _Sample:
+def _sample(structure, reach: float, near=None) -> _Sample:
+    """Neighbours closer than ``reach`` mean spacings of up to SAMPLE_PER_ELEMENT
+    seeded centres per element (``near``: the structure's Neighbourhood)."""
     per_code = structure.counts()
     present = np.flatnonzero(per_code)
     element_of = np.full(len(structure.symbols), -1, dtype=np.int64)
@@ -158,7 +160,7 @@ def _sample(structure, reach: float) -> _Sample:
     start = np.concatenate([[0], np.cumsum([len(d) for d in drawn])])
     spacing = (structure.volume / structure.n_atoms) ** (1.0 / 3.0)
     i, j, d = neighbours.pairs_of(structure.cell, structure.positions, centres,
-                                  reach * spacing)
+                                  reach * spacing, near=near)
     slot_of = np.full(structure.n_atoms, -1, dtype=np.int64)
     slot_of[centres] = np.arange(len(centres))
     slot = slot_of[i]
@@ -288,7 +290,8 @@ def _describe(best: dict, sample: _Sample, pattern: str | None) -> dict:
             "score": best["score"], "misfit": best["parts"], "sublattices": sublattices}
 
 
-def match_prototype(structure, *, pattern: str | None = None) -> tuple[dict | None, str | None]:
+def match_prototype(structure, *, pattern: str | None = None, near=None
+                    ) -> tuple[dict | None, str | None]:
     """The compound prototype ``structure`` (a :class:`~cellbuild.structure.Structure`)
     is, as a JSON-ready dict (see the module docstring), or None with a sentence
     saying why; ``pattern`` is the species-blind lattice, copied into the result.
@@ -300,12 +303,13 @@ def match_prototype(structure, *, pattern: str | None = None) -> tuple[dict | No
     elements with the same surroundings are tried as one species on one
     sublattice (:func:`element_groups`: a high-entropy oxide's cations); a
     mixed sublattice's ``species`` then joins its elements with ``+`` and
-    ``occupants`` gives its atoms per element.
+    ``occupants`` gives its atoms per element. ``near``: the structure's
+    :class:`~cellbuild.neighbourhood.Neighbourhood`, whose cell lists the sample uses.
     """
     if int(np.count_nonzero(structure.counts())) < 2:
         return None, None
     # one neighbour search serves the match and the grouping of the same atoms
-    sample = _sample(structure, _reach())
+    sample = _sample(structure, _reach(), near)
     found, why = _match(structure, pattern, sample)
     if found is not None:
         return found, why

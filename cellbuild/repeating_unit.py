@@ -15,9 +15,11 @@ SYMPREC = 0.01
 #: Largest cell (after removing pure translations) handed to spglib.
 SPGLIB_MAX_ATOMS = 1000
 
-def space_group(structure: Structure) -> tuple[dict | None, str | None]:
-    """({"symbol", "number", "symprec", "atoms_analysed"}, None) or (None, why not)."""
-    unit = repeating_unit(structure, SYMPREC)
+def space_group(structure: Structure, frac: np.ndarray | None = None
+                ) -> tuple[dict | None, str | None]:
+    """({"symbol", "number", "symprec", "atoms_analysed"}, None) or (None, why not).
+    ``frac``: the structure's wrapped fractional coordinates, when already known."""
+    unit = repeating_unit(structure, SYMPREC, frac)
     if unit.n_atoms > SPGLIB_MAX_ATOMS:
         return None, (f"not determined: the cell has no smaller repeating unit along its "
                       f"vectors and {unit.n_atoms:,} atoms are more than spglib handles in "
@@ -29,14 +31,17 @@ def space_group(structure: Structure) -> tuple[dict | None, str | None]:
             "atoms_analysed": unit.n_atoms}, None
 
 
-def repeating_unit(structure: Structure, tol: float) -> Structure:
+def repeating_unit(structure: Structure, tol: float, frac: np.ndarray | None = None
+                   ) -> Structure:
     """The cell with pure translations a_k / q removed along each cell vector.
 
     A translation that maps every atom onto an atom of the same species
     (within about ``tol`` A) means the cell is q copies of a smaller one with the
     same space group. Structures without such a translation come back as they are.
+    ``frac``: the structure's fractional coordinates wrapped into [0, 1), if known.
     """
-    frac = _wrapped(structure)
+    if frac is None:
+        frac = _wrapped(structure)
     for axis in range(3):
         q = _translation_order(structure, frac, axis, tol)
         if q > 1:

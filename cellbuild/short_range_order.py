@@ -138,12 +138,13 @@ def _vacancy_order(pair_counts, on_sites, symbols) -> dict:
 INSPECT_CENTRES = 20_000
 
 
-def warren_cowley_of_file(structure, shell_radii: list[float]) -> dict | None:
+def warren_cowley_of_file(structure, shell_radii: list[float], near=None) -> dict | None:
     """Alphas of a structure read from a file whose atoms share one lattice (an
     alloy): ``shell_radii`` are the ideal shell distances (A); pairs are assigned to
     the nearest shell within half the gap to its neighbours. Up to INSPECT_CENTRES
     centres (all atoms when fewer; else a seeded draw, whose count is reported);
-    None with fewer than two species."""
+    None with fewer than two species. ``near``: the structure's Neighbourhood
+    (:mod:`cellbuild.neighbourhood`), whose cell lists the pair search uses."""
     from .neighbours import pairs_of
 
     m = len(structure.symbols)
@@ -157,7 +158,8 @@ def warren_cowley_of_file(structure, shell_radii: list[float]) -> dict | None:
     n = structure.n_atoms
     centres = np.arange(n) if n <= INSPECT_CENTRES else np.sort(
         np.random.default_rng(0).choice(n, INSPECT_CENTRES, replace=False))
-    i, j, d = pairs_of(structure.cell, structure.positions, centres, float(edges[n_shells]))
+    i, j, d = pairs_of(structure.cell, structure.positions, centres, float(edges[n_shells]),
+                       near=near)
     shell = np.searchsorted(edges, d) - 1  # edges[k] <= d < edges[k + 1]: shell k
     ok = (shell >= 0) & (shell < n_shells)
     conc = per / n
@@ -170,21 +172,21 @@ def warren_cowley_of_file(structure, shell_radii: list[float]) -> dict | None:
             "alpha": alphas}
 
 
-def order_of_file(structure, prototype: dict | None, lattice_radii: list[float] | None
-                  ) -> dict | None:
+def order_of_file(structure, prototype: dict | None, lattice_radii: list[float] | None,
+                  near=None) -> dict | None:
     """``inspect``'s alphas per sublattice, like the report's: for a compound
     prototype match, each sublattice holding two or more elements (``occupants``),
     shells from that sublattice's own geometry at the matched lattice constant;
     otherwise, when the atoms share one lattice (``lattice_radii``, its ideal shell
     distances in Angstrom), that lattice as sublattice ``A``. None when no
-    sublattice is mixed."""
+    sublattice is mixed. ``near``: the structure's Neighbourhood (shared cell lists)."""
     from .crystal import resolve_crystal
     from .structure import Structure
 
     if prototype is None:
         if lattice_radii is None:
             return None
-        found = warren_cowley_of_file(structure, lattice_radii)
+        found = warren_cowley_of_file(structure, lattice_radii, near)
         return None if found is None else {"A": found}
     out = {}
     species = tuple((label, text.split("+")[0]) for label, text in prototype["species"].items())

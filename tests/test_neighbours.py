@@ -451,3 +451,38 @@ def test_pairs_of_and_nearest_neighbours_match_ase():
         mine = ad[ai == k]
         assert best[k] == pytest.approx(mine.min())
         assert partner[k] == aj[ai == k][np.argmin(mine)]
+
+
+def test_neighbourhood_shares_cell_lists_without_changing_results():
+    """A Neighbourhood (cell lists built once per structure) gives exactly what each
+    query gives alone (the queries themselves are checked against ASE above)."""
+    from cellbuild.cell_list import (_build_bins, _candidate_counts, _centres_within,
+                                     _total_half_candidates)
+    from cellbuild.neighbours import Neighbourhood, nearest_neighbours, pair_sample, pairs_of
+
+    atoms = shaken(crystal("fcc", (5, 5, 5)), 0.05, seed=7)
+    cell, positions = cell_and_positions(atoms)
+    near = Neighbourhood(cell, positions)
+    r_max, r = 6.0, 4.5
+    alone = pair_sample(cell, positions, r_max, max_pairs=20_000)
+    shared = pair_sample(cell, positions, r_max, max_pairs=20_000, near=near)
+    assert shared.centres == alone.centres and np.array_equal(shared.distances, alone.distances)
+    centres = np.arange(0, len(positions), 7)
+    for got, want in zip(nearest_neighbours(cell, positions, r_max, centres=centres, near=near),
+                         nearest_neighbours(cell, positions, r_max, centres=centres)):
+        assert np.array_equal(got, want)
+    # pairs_of may use the cell list of r_max for r: the same pairs, another order
+    got = pairs_of(cell, positions, centres, r, near=near)
+    want = pairs_of(cell, positions, centres, r)
+    assert sorted(zip(*(a.tolist() for a in got))) == sorted(zip(*(a.tolist() for a in want)))
+    for a, b in zip(close_pairs(cell, positions, 2.6, limit=5, near=near),
+                    close_pairs(cell, positions, 2.6, limit=5)):
+        assert np.array_equal(a, b)
+    assert len(near._bins) == 2  # r_max (shared) and 2.6; none for r
+    bins = _build_bins(cell, positions, 3.0)
+    every = np.arange(len(positions))
+    assert _total_half_candidates(bins) == _candidate_counts(bins, every, True).sum()
+    drawn = np.random.default_rng(1).permutation(len(positions))
+    cost = np.cumsum(_candidate_counts(bins, drawn, half=False))
+    for budget in (1, 5000, int(cost[-1]), int(cost[-1]) + 1):
+        assert _centres_within(bins, drawn, budget) == np.searchsorted(cost, budget)
