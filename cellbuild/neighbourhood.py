@@ -53,9 +53,10 @@ class Neighbourhood:
             and np.array_equal(np.asarray(cell, dtype=np.float64), self.cell)
             and np.shares_memory(np.asarray(positions), self.positions))
 
-    def bins(self, r: float, limit: float, reuse: float = 1.0) -> _Bins:
+    def bins(self, r: float, limit: float, reuse: float = 1.0, keep: bool = True) -> _Bins:
         """A cell list for neighbours closer than ``r`` (A): one already built for a
-        radius between r and ``reuse`` x r, else a new one (kept for later queries).
+        radius between r and ``reuse`` x r, else a new one (kept for later queries
+        if ``keep``: about 100 bytes per atom).
 
         PairLimitError as :func:`cellbuild.cell_list._build_bins` for r and ``limit``
         (checked for every query, whichever cell list serves it).
@@ -68,5 +69,6 @@ class Neighbourhood:
         if fits:
             return self._bins[min(fits)]
         built = _build_bins(self.cell, self.positions, r, limit=limit, frac=self.frac)
-        self._bins[r] = built
+        if keep:
+            self._bins[r] = built
         return built

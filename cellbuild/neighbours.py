@@ -232,7 +232,8 @@ def close_pairs(cell, positions, r, *, workers=2, limit=None, max_pairs=MAX_LIST
         return empty
     budget = (MAX_COUNTED_PAIRS, "a shortest-pair search handles") if limit is not None \
         else (int(max_pairs), "a pair list holds")
-    bins = _bins_for(near, cell, positions, r, budget[0])
+    # a closest-pair radius serves no later query: its cell list is not kept
+    bins = _bins_for(near, cell, positions, r, budget[0], keep=False)
     chunks = _chunks(bins, half=True, limit=(r, *budget))
     per_thread = _in_threads(
         lambda group: _collect_pairs(bins, group, r * r, limit, most=budget[0]),
@@ -417,11 +418,11 @@ def sampled_centre_count(cell, n_atoms, r_max, max_pairs) -> int:
 
 
 def _bins_for(near: Neighbourhood | None, cell: np.ndarray, positions: np.ndarray, r: float,
-              limit: float, reuse: float = 1.0):
+              limit: float, reuse: float = 1.0, keep: bool = True):
     """The cell list of a query: from ``near`` when it is this structure's (built
-    there once), else a new one."""
+    there once, kept there if ``keep``), else a new one."""
     if near is not None and near.same(cell, positions):
-        return near.bins(r, limit, reuse)
+        return near.bins(r, limit, reuse, keep)
     return _build_bins(cell, positions, r, limit=limit)
 
 

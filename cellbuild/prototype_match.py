@@ -313,7 +313,7 @@ def match_prototype(structure, *, pattern: str | None = None, near=None
     found, why = _match(structure, pattern, sample)
     if found is not None:
         return found, why
-    mixed = _mixed_match(structure, pattern, sample)
+    mixed = _mixed_match(structure, pattern, sample, near)
     if mixed is not None:
         return mixed, None
     counts = structure.counts()
@@ -367,10 +367,11 @@ def element_groups(structure, sample: _Sample | None = None) -> list[list[str]]:
     return [[sample.elements[e] for e in g] for g in groups]
 
 
-def _mixed_match(structure, pattern: str | None, sample: _Sample | None = None
-                 ) -> dict | None:
+def _mixed_match(structure, pattern: str | None, sample: _Sample | None = None,
+                 near=None) -> dict | None:
     """The prototype of ``structure`` with each group of :func:`element_groups`
-    taken as one species, or None when no group holds two elements or none fits."""
+    taken as one species, or None when no group holds two elements or none fits.
+    ``near``: the structure's Neighbourhood (the grouped atoms are the same atoms)."""
     from .structure import Structure
 
     groups = element_groups(structure, sample)
@@ -381,7 +382,7 @@ def _mixed_match(structure, pattern: str | None, sample: _Sample | None = None
         group_of[[structure.symbols.index(e) for e in g]] = k
     grouped = Structure(structure.cell, structure.positions, group_of[structure.species],
                         tuple(g[0] for g in groups))
-    found, _ = _match(grouped, pattern)
+    found, _ = _match(grouped, pattern, near=near)
     if found is None:
         return None
     counts = structure.counts()
@@ -393,9 +394,10 @@ def _mixed_match(structure, pattern: str | None, sample: _Sample | None = None
     return found
 
 
-def _match(structure, pattern: str | None, sample: _Sample | None = None
+def _match(structure, pattern: str | None, sample: _Sample | None = None, near=None
            ) -> tuple[dict | None, str | None]:
-    """Best prototype of ``structure`` (``sample``: its neighbour sample, if drawn)."""
+    """Best prototype of ``structure`` (``sample``: its neighbour sample, if drawn;
+    ``near``: its Neighbourhood)."""
     present = int(np.count_nonzero(structure.counts()))
     if present < 2:
         return None, None
@@ -403,7 +405,7 @@ def _match(structure, pattern: str | None, sample: _Sample | None = None
     if not refs:
         return None, f"no prototype has {present} sublattices"
     if sample is None:
-        sample = _sample(structure, _reach())
+        sample = _sample(structure, _reach(), near)
     candidates = []
     for ref in refs:
         for mapping in product(range(present), repeat=len(ref.sublattices)):

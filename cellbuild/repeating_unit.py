@@ -42,13 +42,14 @@ def repeating_unit(structure: Structure, tol: float, frac: np.ndarray | None = N
     """
     if frac is None:
         frac = _wrapped(structure)
+    binned = None  # position bins and sorted keys, shared by the axes until the cell shrinks
     for axis in range(3):
-        q = _translation_order(structure, frac, axis, tol)
+        q, binned = _translation_order(structure, frac, axis, tol, binned)
         if q > 1:
             reduced = _slab(structure, frac, axis, q, tol)
             if reduced is not None:
                 structure = reduced
-                frac = _wrapped(structure)
+                frac, binned = _wrapped(structure), None
     return structure
 
 
@@ -84,8 +85,11 @@ def _bins(structure: Structure, tol: float) -> np.ndarray:
     return np.maximum(1, np.floor(widths / (2.0 * tol))).astype(np.int64)
 
 
-def _translation_order(structure: Structure, frac: np.ndarray, axis: int, tol: float) -> int:
-    """Largest q with a_axis / q a symmetry translation found from atom 0's row, or 1.
+def _translation_order(structure: Structure, frac: np.ndarray, axis: int, tol: float,
+                       binned: list | None = None) -> tuple[int, list | None]:
+    """(Largest q with a_axis / q a symmetry translation found from atom 0's row, or
+    1; ``binned``: [position bins of :func:`_cells`, sorted keys or None], computed
+    once for these coordinates and passed back in for the next axis).
 
     The candidate comes from the atoms in the same row along ``axis`` as atom 0
     (same bins on the other axes, same species): the shortest shift to one of
@@ -95,27 +99,41 @@ def _translation_order(structure: Structure, frac: np.ndarray, axis: int, tol: f
     bins = _bins(structure, tol)
     too_fine = float(np.prod(bins.astype(np.float64))) * (int(structure.species.max()) + 1)
     if structure.n_atoms < 2 or too_fine >= 2.0 ** 62:  # keys would overflow int64
-        return 1
-    cells = _cells(frac, bins)
+        return 1, binned
+    if binned is None:
+        binned = [_cells(frac, bins), None]
+    cells = binned[0]
     others = [k for k in range(3) if k != axis]
-    same_row = np.all(cells[:, others] == cells[0, others], axis=1)
+    same_row = cells[:, others[0]] == cells[0, others[0]]
+    same_row &= cells[:, others[1]] == cells[0, others[1]]
     same_row &= structure.species == structure.species[0]
     shift = (frac[same_row, axis] - frac[0, axis]) % 1.0
     shift = shift[(shift > 1.0 / bins[axis]) & (shift < 1.0 - 1.0 / bins[axis])]
     if shift.size == 0:
-        return 1
+        return 1, binned
     q = Fraction(float(shift.min())).limit_denominator(structure.n_atoms).denominator
     if q < 2 or structure.n_atoms % q:
-        return 1
-    keys = np.sort(_keys(cells, structure.species, bins))
-    moved = frac.copy()
-    moved[:, axis] = (moved[:, axis] + 1.0 / q) % 1.0
-    moved_keys = _keys(_cells(moved, bins), structure.species, bins)
-    sample = moved_keys[:: max(1, structure.n_atoms // _TRANSLATION_SAMPLE)]
+        return 1, binned
+    if binned[1] is None:
+        binned[1] = np.sort(_keys(cells, structure.species, bins))
+    keys = binned[1]
+    sample = _moved_keys(cells, frac, structure.species, bins, axis, q,
+                         slice(None, None, max(1, structure.n_atoms // _TRANSLATION_SAMPLE)))
     found = np.searchsorted(keys, sample)
     if np.any(found >= len(keys)) or np.any(keys[np.minimum(found, len(keys) - 1)] != sample):
-        return 1
-    return q if np.array_equal(keys, np.sort(moved_keys)) else 1
+        return 1, binned
+    moved_keys = _moved_keys(cells, frac, structure.species, bins, axis, q, slice(None))
+    return (q if np.array_equal(keys, np.sort(moved_keys)) else 1), binned
+
+
+def _moved_keys(cells: np.ndarray, frac: np.ndarray, species: np.ndarray, bins: np.ndarray,
+                axis: int, q: int, rows: slice) -> np.ndarray:
+    """Keys of the atoms ``rows`` moved by a_axis / q: only that coordinate's bins
+    change (elementwise, as :func:`_cells` of the moved coordinates gives them)."""
+    moved = cells[rows].copy()
+    moved[:, axis] = _cells(((frac[rows, axis] + 1.0 / q) % 1.0)[:, None],
+                            bins[axis:axis + 1])[:, 0]
+    return _keys(moved, species[rows], bins)
 
 
 def _slab(structure: Structure, frac: np.ndarray, axis: int, q: int,

@@ -478,7 +478,7 @@ def test_neighbourhood_shares_cell_lists_without_changing_results():
     for a, b in zip(close_pairs(cell, positions, 2.6, limit=5, near=near),
                     close_pairs(cell, positions, 2.6, limit=5)):
         assert np.array_equal(a, b)
-    assert len(near._bins) == 2  # r_max (shared) and 2.6; none for r
+    assert list(near._bins) == [r_max]  # shared; none for r, close_pairs keeps none
     bins = _build_bins(cell, positions, 3.0)
     every = np.arange(len(positions))
     assert _total_half_candidates(bins) == _candidate_counts(bins, every, True).sum()
