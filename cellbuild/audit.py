@@ -17,27 +17,13 @@ from functools import lru_cache
 import numpy as np
 
 from . import neighbours
+from .checks_common import MAX_CLOSE_PAIRS_LISTED, Check, histogram, spacegroup  # noqa: F401
 from .build import (AVOGADRO, ANGSTROM3_TO_CM3, Plan, replicate, site_positions,
                     standard_atomic_weight)
 from .crystal import Crystal
 from .defects import Placement
 from .short_range_order import warren_cowley
 from .structure import Structure
-
-#: Pairs listed in the report when closer than the threshold (more are counted).
-MAX_CLOSE_PAIRS_LISTED = 20
-
-
-@dataclass(frozen=True)
-class Check:
-    """One named check with its outcome and a one-line explanation."""
-
-    name: str
-    passed: bool
-    detail: str
-
-    def as_dict(self) -> dict:
-        return {"name": self.name, "passed": bool(self.passed), "detail": self.detail}
 
 
 @dataclass(frozen=True)
@@ -248,22 +234,6 @@ def _space_group_check(found: dict, ideal: dict) -> Check:
                  f"({want['number']})")
 
 
-def spacegroup(structure: Structure, symprec: float = 1e-5) -> tuple[str, int]:
-    """International symbol and number that spglib finds from the coordinates."""
-    import warnings
-
-    import spglib
-
-    with warnings.catch_warnings():
-        # spglib 2.x warns about its error-handling mode on every call
-        warnings.simplefilter("ignore", DeprecationWarning)
-        data = spglib.get_symmetry_dataset(
-            (structure.cell, structure.fractional(), structure.species), symprec=symprec)
-    if data is None:
-        return "unknown", 0
-    return str(data.international), int(data.number)
-
-
 def _atoms_per_cell_check(plan: Plan, structure: Structure, placements) -> Check:
     """Every conventional cell holds the basis count, counting vacant sites back in.
 
@@ -428,14 +398,6 @@ def _coordination_values(structure: Structure, counted: np.ndarray, cutoff: floa
         },
         "mismatched": mismatched,
     }
-
-
-def histogram(counts: np.ndarray) -> dict[str, int]:
-    """{"12": number of atoms with 12 neighbours, ...} in ascending order."""
-    if counts.size == 0:
-        return {}
-    tally = np.bincount(counts, minlength=int(counts.max()) + 1)
-    return {str(k): int(v) for k, v in enumerate(tally) if v}
 
 
 def _distance_check(recipe, structure: Structure, d_nn: float, values: dict,

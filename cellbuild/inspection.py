@@ -49,8 +49,8 @@ import math
 import numpy as np
 
 from . import neighbours
-from .audit import MAX_CLOSE_PAIRS_LISTED, histogram
-from .build import ANGSTROM3_TO_CM3, AVOGADRO, standard_atomic_weight
+from .checks_common import (ANGSTROM3_TO_CM3, AVOGADRO, MAX_CLOSE_PAIRS_LISTED, histogram,
+                            standard_atomic_weight)
 from .errors import InputError
 from .lattice_match import (CROWDED_FRACTION, PATTERN_NAMES, LatticeMatch, defects_note,
                             first_shell, infer_defects, match_lattice, patterns,

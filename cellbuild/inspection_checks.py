@@ -7,7 +7,7 @@ from __future__ import annotations
 import numpy as np
 
 from . import neighbours, spacing as physical
-from .audit import Check
+from .checks_common import Check
 from .lattice_match import LatticeMatch
 from .pair_shells import PairDistribution
 from .prototype_match import prototype_text

@@ -247,7 +247,8 @@ def close_pairs(cell, positions, r, *, workers=2, limit=None, max_pairs=MAX_LIST
 
 
 def pairs_of(cell, positions, centres, r, *, max_pairs=MAX_LISTED_PAIRS,
-             near: Neighbourhood | None = None) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
+             near: Neighbourhood | None = None, workers=2
+             ) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
     """Every neighbour (atom or image) closer than ``r`` (A) of the given centres.
 
     Returns ``(i, j, distance)``: i a centre's atom index, j the neighbour's,
@@ -256,7 +257,8 @@ def pairs_of(cell, positions, centres, r, *, max_pairs=MAX_LISTED_PAIRS,
 
     ``near``: the structure's :class:`Neighbourhood`; a cell list it holds for up
     to REUSE_FACTOR x r serves (the same pairs; their order within a centre
-    follows the cell list).
+    follows the cell list). Chunks of centres run in ``workers`` threads; the
+    result is the same for any number.
     """
     cell = _checked_cell(cell)
     positions = _checked_positions(positions)
@@ -267,7 +269,12 @@ def pairs_of(cell, positions, centres, r, *, max_pairs=MAX_LISTED_PAIRS,
     bins = _bins_for(near, cell, positions, r, math.inf, REUSE_FACTOR)
     chunks = _chunks(bins, half=False, centres=np.sort(bins.rank[centres]),
                      limit=(r, int(max_pairs), "a pair list holds"))
-    parts = [_pairs_in_chunk(bins, chunk, r * r, half=False) for chunk in chunks]
+    threads = min(_thread_count(workers), len(chunks))
+    per_group = _in_threads(
+        lambda group: [_pairs_in_chunk(bins, chunk, r * r, half=False) for chunk in group],
+        chunks, threads)
+    # group k ran chunks k, k + threads, ...: put the parts back in chunk order
+    parts = [per_group[c % threads][c // threads] for c in range(len(chunks))]
     i = bins.order[np.concatenate([p[0] for p in parts])]
     j = bins.order[bins.entry_atom[np.concatenate([p[1] for p in parts])]]
     return i, j, np.sqrt(np.concatenate([p[2] for p in parts]))

@@ -7,7 +7,7 @@ from fractions import Fraction
 import numpy as np
 
 from . import neighbours
-from .audit import spacegroup
+from .checks_common import spacegroup
 from .structure import Structure
 
 #: Symmetry tolerance (Angstrom) for spglib and for the translation search.
