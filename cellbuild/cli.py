@@ -104,8 +104,8 @@ def make(
     """Build each recipe, audit it and write its files and NAME.report.json."""
     from collections import Counter
 
-    from .pipeline import REUSE_MEMORY_ATOMS, build, check_outputs_free, make as make_one
-    from .pipeline import reuse_freed_memory
+    from .memory import REUSE_MEMORY_ATOMS, reuse_freed_memory
+    from .pipeline import build, check_outputs_free, make as make_one
     from .build import resolve
 
     with _bad_input_exits(out):
@@ -329,12 +329,15 @@ def inspect_files(
     failed, 2 a file (or an option) could not be used.
     """
     from .inspection import describe, inspect_file, plot_paths
+    from .memory import REUSE_MEMORY_FILE_BYTES, reuse_freed_memory
 
     try:
         symbols = _inspect_options(types, expect, cutoff, potential_cutoff, plot)
     except InputError as exc:
         raise _fail(exc) from None
     results, code = [], EXIT_OK
+    if any(_file_bytes(path) >= REUSE_MEMORY_FILE_BYTES for path in files):
+        reuse_freed_memory()  # this process ends after the files: keep freed pages
     for path, png in zip(files, plot_paths(plot, files)):
         try:
             result = inspect_file(path, types=symbols, cutoff=cutoff, expect=expect,
@@ -357,6 +360,14 @@ def inspect_files(
     if as_json and (len(files) > 1 or code != EXIT_BAD_INPUT):
         typer.echo(json.dumps(results if len(files) > 1 else results[0], indent=2))
     raise typer.Exit(code)
+
+
+def _file_bytes(path: Path) -> int:
+    """Size of ``path`` in bytes, 0 if it cannot be read (the reader names the problem)."""
+    try:
+        return path.stat().st_size
+    except OSError:
+        return 0
 
 
 def _inspect_options(types, expect, cutoff, potential_cutoff, plot) -> Optional[list]:
