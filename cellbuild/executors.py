@@ -160,8 +160,9 @@ class DaskExecutor:
         self._shared: tuple[str, str] | None = None  # (marker path, token) of the jobs' folder
 
     def worker_count(self) -> int:
-        """Workers connected now (at least one is waited for in :meth:`check_shared`)."""
-        return max(1, len(self.client.scheduler_info().get("workers", {})))
+        """Threads of the workers connected now (one structure each at a time; at least
+        one worker is waited for in :meth:`check_shared`)."""
+        return max(1, sum(self.client.nthreads().values()))
 
     def check_shared(self, folder: Path, key: str) -> None:
         """Write a marker file into ``folder`` and ask every worker to read it back.
