@@ -16,6 +16,8 @@ from pathlib import Path
 
 import numpy as np
 
+# the constants and weights live with inspect's checks, re-exported for the build side
+from .checks_common import ANGSTROM3_TO_CM3, AVOGADRO, standard_atomic_weight  # noqa: F401
 from .errors import InputError
 from .formats import FORMATS
 from .crystal import Crystal, resolve_cif, resolve_crystal
@@ -24,22 +26,12 @@ from .lattices import LATTICES, touching_radius_factor
 from .recipe import Recipe
 from .structure import Structure
 
-AVOGADRO = 6.02214076e23  # 1/mol, exact (SI 2019)
-ANGSTROM3_TO_CM3 = 1e-24
-
 #: Peak bytes of memory per atom for a whole `make` (arrays, neighbour counts,
 #: one writer chunk); measured by benchmarks/bench_make.py, rounded up.
 BYTES_PER_ATOM = 400
 #: Hard limits (Angstrom): beyond them numbers no longer fit the fixed-width
 #: output fields with 1e-10 Angstrom resolution; far outside any real crystal.
 MIN_CONSTANT, MAX_CONSTANT, MAX_BOX = 0.01, 1000.0, 1.0e6
-
-
-def standard_atomic_weight(symbol: str) -> float:
-    """Standard atomic weight in g/mol, from ASE's data table (IUPAC values)."""
-    from ase.data import atomic_masses, atomic_numbers
-
-    return float(atomic_masses[atomic_numbers[symbol]])
 
 
 @dataclass(frozen=True)

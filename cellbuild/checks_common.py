@@ -11,7 +11,7 @@ import numpy as np
 
 #: Pairs listed in the report when closer than the threshold (more are counted).
 MAX_CLOSE_PAIRS_LISTED = 20
-AVOGADRO = 6.02214076e23  # 1/mol, exact (SI 2019); the value of build.AVOGADRO
+AVOGADRO = 6.02214076e23  # 1/mol, exact (SI 2019)
 ANGSTROM3_TO_CM3 = 1e-24
 
 
@@ -53,8 +53,7 @@ def histogram(counts: np.ndarray) -> dict[str, int]:
 
 
 def standard_atomic_weight(symbol: str) -> float:
-    """Standard atomic weight in g/mol, from ASE's data table (IUPAC values); the
-    same as :func:`cellbuild.build.standard_atomic_weight`."""
+    """Standard atomic weight in g/mol, from ASE's data table (IUPAC values)."""
     from ase.data import atomic_masses, atomic_numbers
 
     return float(atomic_masses[atomic_numbers[symbol]])
