@@ -81,6 +81,9 @@ MIN_DISTANCE_FLOOR = 0.5
 FALLBACK_CUTOFF = 1.25
 #: Pairs and atom indices listed in the result (all are counted).
 CLOSEST_PAIRS_LISTED = 5
+#: Largest distance (A) of an atom from its site for a file to count as on a
+#: grid (atoms written with 6 or more decimals of Angstrom, or fractions, are).
+GRID_TOL = 1e-6
 #: Crowded atoms beyond which interstitial-like atoms are not told apart.
 MAX_CROWDED_EXAMINED = 200_000
 
@@ -155,15 +158,19 @@ def _analyse(structure, file, cutoff, expect, potential_cutoff, workers, source,
     spacing = (volume / n) ** (1.0 / 3.0)
     # every neighbour search below shares its cell lists and fractional coordinates
     near = neighbours.Neighbourhood(cell, positions)
+    # atoms on the sites of a grid (files of built crystals): closest pairs and
+    # coordination come from the occupancy grid, without a pair search
+    sites = neighbours.locate_grid(cell, positions, GRID_TOL)
     distribution = _pair_distribution(structure, spacing, workers, near)
     shells, boundaries = find_shells(distribution, spacing)
     threshold, threshold_source = _distance_threshold(shells)
     _refuse_overlap(distribution, threshold, n, file)
-    ci, cj, cd = _closest_pairs(structure, distribution, workers, near)
+    ci, cj, cd = _closest_pairs(structure, distribution, workers, near, sites)
     cut, cut_source = _choose_cutoff(cutoff, boundaries, spacing)
     if cutoff is not None:
         _refuse_cutoff(structure, distribution, cutoff)
-    counts = neighbours.coordination_counts(cell, positions, cut, workers=workers)
+    counts = neighbours.coordination_counts(cell, positions, cut, workers=workers, sites=sites,
+                                            locate=False)
     first = first_shell(distribution.distances, shells, boundaries)
     match, match_info = match_lattice(counts, shells, first, distribution, volume, n)
     prototype, prototype_note = match_prototype(structure, pattern=match.name if match else None,
@@ -287,20 +294,28 @@ def _choose_cutoff(cutoff: float | None, boundaries: list[float],
 
 
 def _closest_pairs(structure: Structure, distribution: PairDistribution, workers: int,
-                   near: neighbours.Neighbourhood | None = None):
-    """The ``CLOSEST_PAIRS_LISTED`` shortest pairs (i, j, d), exactly.
+                   near: neighbours.Neighbourhood | None = None,
+                   sites: neighbours.GridSites | None = None):
+    """The ``CLOSEST_PAIRS_LISTED`` shortest pairs (i, j, d).
 
     The shortest sampled distance bounds the true minimum from above, so all
     pairs up to it contain the closest ones; min_distance is the fallback.
+    Atoms on a grid (``sites``) are paired by their sites' distances, which are
+    within 2 GRID_TOL of the actual ones (ties among equal site distances by
+    atom index); elsewhere the pairs are exactly the shortest.
     """
     cell, positions = structure.cell, structure.positions
     if distribution.distances.size:
         r = float(distribution.distances[0]) * (1.0 + 1e-9) + 1e-12
-        i, j, d = neighbours.close_pairs(cell, positions, r, workers=workers,
-                                         limit=CLOSEST_PAIRS_LISTED, near=near)
-        if d.size:
-            return i, j, d
-    d, i, j = neighbours.min_distance(cell, positions, workers=workers)
+        found = None
+        if sites is not None:
+            found = neighbours.grid_close_pairs(sites, r + 2.0 * GRID_TOL, CLOSEST_PAIRS_LISTED)
+        if found is None:
+            found = neighbours.close_pairs(cell, positions, r, workers=workers,
+                                           limit=CLOSEST_PAIRS_LISTED, near=near)
+        if found[2].size:
+            return found
+    d, i, j = neighbours.min_distance(cell, positions, workers=workers, sites=sites)
     return np.array([i]), np.array([j]), np.array([d])
 
 

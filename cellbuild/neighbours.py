@@ -62,12 +62,12 @@ from .cellgeom import (_checked_cell, _checked_positions, _checked_radius, _thre
                        _wrapped_fractional, perpendicular_widths)
 from .neighbour_grid import (MAX_GRID_OFFSETS, MAX_GRID_SITES, GridSites,
                              _count_occupied_offsets, _grid_min_distance,
-                             _grid_offsets, _grid_sites, locate_grid)
+                             _grid_offsets, _grid_sites, grid_close_pairs, locate_grid)
 from .neighbourhood import REUSE_FACTOR, Neighbourhood
 
 __all__ = ["GridSites", "MAX_COUNTED_PAIRS", "MAX_GRID_OFFSETS", "MAX_GRID_SITES",
            "MAX_LISTED_PAIRS", "PairLimitError", "PairSample", "close_pairs",
-           "coordination_counts", "general_counts", "grid_counts", "locate_grid",
+           "coordination_counts", "general_counts", "grid_close_pairs", "grid_counts", "locate_grid",
            "min_distance", "Neighbourhood", "nearest_neighbours", "pair_distances", "pair_sample", "pairs_of",
            "perpendicular_widths", "sampled_centre_count", "uniform_pairs"]
 
@@ -83,16 +83,17 @@ _KEPLER_FACTOR = (6.0 / math.sqrt(18.0)) ** (1.0 / 3.0)
 
 
 def coordination_counts(cell, positions, cutoff, *, workers=2,
-                        sites: GridSites | None = None) -> np.ndarray:
+                        sites: GridSites | None = None, locate: bool = True) -> np.ndarray:
     """Neighbours of each atom closer than ``cutoff`` (Angstrom), (N,) int32.
 
     Neighbours are other atoms and periodic images, including images of the
     atom itself. Uses the grid fast path when every atom sits on a regular grid
     of the cell (within 1e-6 A) and no two atoms share a site, otherwise the
     general cell-list engine with ``workers`` threads. ``sites`` passes a grid
-    already located for these positions.
+    already located for these positions; ``locate=False`` says that the caller
+    looked for one and found none (``sites`` None: straight to the general engine).
     """
-    counts = grid_counts(cell, positions, cutoff, sites=sites)
+    counts = grid_counts(cell, positions, cutoff, sites=sites) if locate or sites is not None else None
     if counts is None:
         counts = general_counts(cell, positions, cutoff, workers=workers)
     return counts

@@ -24,7 +24,9 @@ from cellbuild.neighbours import (
     close_pairs,
     coordination_counts,
     general_counts,
+    grid_close_pairs,
     grid_counts,
+    locate_grid,
     min_distance,
     pair_distances,
     perpendicular_widths,
@@ -486,3 +488,67 @@ def test_neighbourhood_shares_cell_lists_without_changing_results():
     cost = np.cumsum(_candidate_counts(bins, drawn, half=False))
     for budget in (1, 5000, int(cost[-1]), int(cost[-1]) + 1):
         assert _centres_within(bins, drawn, budget) == np.searchsorted(cost, budget)
+
+
+# ---------------------------------------------------------------------------
+# Closest pairs from the occupancy grid against ASE's neighbour list
+# ---------------------------------------------------------------------------
+
+def ase_pair_multiset(atoms: Atoms, r: float) -> dict:
+    """Reference: {(i, j, d rounded to 1e-9 A): count} of the pairs closer than r,
+    i <= j, each pair once (ASE lists every pair from both ends)."""
+    ai, aj, ad = neighbor_list("ijd", atoms, r)
+    keys = {}
+    for a, b, d in zip(np.minimum(ai, aj).tolist(), np.maximum(ai, aj).tolist(), ad.tolist()):
+        key = (a, b, round(d, 9))
+        keys[key] = keys.get(key, 0) + 1
+    assert all(count % 2 == 0 for count in keys.values())
+    return {key: count // 2 for key, count in keys.items()}
+
+
+def grid_cases():
+    yield pytest.param(bulk("Po", "sc", a=2.0), 4.5, id="sc-one-atom-images")
+    yield pytest.param(bulk("Cu", "fcc", a=3.6).repeat((2, 1, 3)), 4.0, id="fcc-primitive")
+    yield pytest.param(bulk("Si", "diamond", a=5.43, cubic=True), 4.0, id="diamond-cubic")
+    atoms = crystal("bcc", (3, 2, 2))
+    del atoms[[0, 5, 6]]
+    yield pytest.param(atoms, 3.2, id="bcc-vacancies")
+
+
+@pytest.mark.parametrize("atoms, r", grid_cases())
+def test_grid_close_pairs_are_the_pairs_of_ase_neighbour_list(atoms, r):
+    cell, positions = cell_and_positions(atoms)
+    sites = locate_grid(cell, positions)
+    assert sites is not None and not sites.shared
+    reference = ase_pair_multiset(atoms, r)
+    total = sum(reference.values())
+    i, j, d = grid_close_pairs(sites, r, total + 10)
+    found = {}
+    for key in zip(i.tolist(), j.tolist(), np.round(d, 9).tolist()):
+        found[key] = found.get(key, 0) + 1
+    assert found == reference
+    assert np.all(np.diff(d) >= 0) and np.all(i <= j)
+    # the cell-list engine finds the same distances
+    np.testing.assert_allclose(d, close_pairs(cell, positions, r)[2], atol=1e-9)
+
+
+@pytest.mark.parametrize("atoms, r", grid_cases())
+def test_grid_close_pairs_limited_keeps_the_shortest_then_lowest_indices(atoms, r):
+    cell, positions = cell_and_positions(atoms)
+    sites = locate_grid(cell, positions)
+    i, j, d = grid_close_pairs(sites, r, 10_000)
+    order = sorted(zip(np.round(d, 9).tolist(), i.tolist(), j.tolist()))
+    for limit in (1, 3, 7):
+        li, lj, ld = grid_close_pairs(sites, r, limit)
+        assert sorted(zip(np.round(ld, 9).tolist(), li.tolist(), lj.tolist())) == order[:limit]
+        # every listed distance is that of the closest pairs (cell-list engine)
+        np.testing.assert_allclose(ld, close_pairs(cell, positions, r, limit=limit)[2],
+                                   atol=1e-9)
+
+
+def test_grid_close_pairs_declines_shared_sites_and_empty_radius():
+    atoms = crystal("fcc", (2, 2, 2))
+    cell, positions = cell_and_positions(atoms)
+    assert grid_close_pairs(locate_grid(cell, positions), 0.5, 5) is None  # below a/sqrt2
+    doubled = np.vstack([positions, positions[:1]])
+    assert grid_close_pairs(locate_grid(cell, doubled), 3.0, 5) is None
