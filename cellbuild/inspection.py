@@ -156,11 +156,11 @@ def _analyse(structure, file, cutoff, expect, potential_cutoff, workers, source,
     cell, positions = structure.cell, structure.positions
     volume, n = structure.volume, structure.n_atoms
     spacing = (volume / n) ** (1.0 / 3.0)
-    # every neighbour search below shares its cell lists and fractional coordinates
-    near = neighbours.Neighbourhood(cell, positions)
-    # atoms on the sites of a grid (files of built crystals): closest pairs and
-    # coordination come from the occupancy grid, without a pair search
+    # atoms on the sites of a grid (files of built crystals): the pair queries
+    # and the coordination read the occupancy grid, without a cell list
     sites = neighbours.locate_grid(cell, positions, GRID_TOL)
+    # every neighbour search below shares its cell lists and fractional coordinates
+    near = neighbours.Neighbourhood(cell, positions, sites)
     distribution = _pair_distribution(structure, spacing, workers, near)
     shells, boundaries = find_shells(distribution, spacing)
     threshold, threshold_source = _distance_threshold(shells)
@@ -302,14 +302,15 @@ def _closest_pairs(structure: Structure, distribution: PairDistribution, workers
     pairs up to it contain the closest ones; min_distance is the fallback.
     Atoms on a grid (``sites``) are paired by their sites' distances, which are
     within 2 GRID_TOL of the actual ones (ties among equal site distances by
-    atom index); elsewhere the pairs are exactly the shortest.
+    atom index; the distances listed are the actual ones); elsewhere the pairs
+    are exactly the shortest.
     """
     cell, positions = structure.cell, structure.positions
     if distribution.distances.size:
         r = float(distribution.distances[0]) * (1.0 + 1e-9) + 1e-12
         found = None
         if sites is not None:
-            found = neighbours.grid_close_pairs(sites, r + 2.0 * GRID_TOL, CLOSEST_PAIRS_LISTED)
+            found = neighbours.grid_close_pairs(sites, r, CLOSEST_PAIRS_LISTED)
         if found is None:
             found = neighbours.close_pairs(cell, positions, r, workers=workers,
                                            limit=CLOSEST_PAIRS_LISTED, near=near)

@@ -55,12 +55,18 @@ class GridSites:
         flat: (N,) int64 C-order index of each atom's grid site.
         cell: (3, 3) the cell (Angstrom) the grid divides.
         positions: (N, 3) the Cartesian positions (Angstrom) located (not copied).
+        tol: largest distance (Angstrom) of an atom from its site that was
+            accepted.
+        worst: an upper bound (Angstrom) of the distances of the atoms from
+            their sites, as found (at most ``tol``).
     """
 
     grid: np.ndarray
     flat: np.ndarray
     cell: np.ndarray
     positions: np.ndarray
+    tol: float = 1e-6
+    worst: float = 1e-6
 
     def frac_of(self, rows) -> np.ndarray:
         """Wrapped fractional coordinates, relative to atom 0, of the atoms ``rows``."""
@@ -78,6 +84,23 @@ class GridSites:
         occupied = np.zeros(int(np.prod(self.grid)), dtype=np.uint8)
         occupied[self.flat] = 1
         return occupied
+
+    @cached_property
+    def residuals(self) -> np.ndarray:
+        """(N, 3) Cartesian offset (Angstrom) of each atom from its grid site, made
+        once for the pair queries: an actual pair vector is the site offset's
+        vector plus the difference of the two atoms' residuals."""
+        scaled = self.frac * self.grid
+        scaled -= np.rint(scaled)
+        return _times(scaled / self.grid, self.cell)
+
+    @cached_property
+    def atom_at(self) -> np.ndarray:
+        """(M1 * M2 * M3,) int64 atom on each site, -1 where none (C order); made once
+        for the pair queries (:mod:`cellbuild.grid_pairs`). Meaningful without shared sites."""
+        atoms = np.full(int(np.prod(self.grid)), -1, dtype=np.int64)
+        atoms[self.flat] = np.arange(len(self.flat))
+        return atoms
 
     @cached_property
     def shared(self) -> bool:
@@ -102,27 +125,31 @@ def locate_grid(cell, positions, tol=1e-6) -> GridSites | None:
     origin = positions[0]
     if n <= _LOCATE_CHUNK:  # one chunk: the fractional coordinates of all atoms at once
         located = _find_grid_sites(cell, _wrapped_fractional(cell, positions - origin), tol)
-        return None if located is None else GridSites(located[0], located[1], cell, positions)
+        return None if located is None else GridSites(*located[:2], cell, positions, tol,
+                                                       located[2])
     sample = _wrapped_fractional(
         cell, positions[np.random.default_rng(0).integers(0, n, _GRID_SAMPLE)] - origin)
     grid = _detect_grid(cell, sample, tol)
     if grid is None or np.prod(grid, dtype=np.float64) > MAX_GRID_SITES_PER_ATOM * n:
         return None  # a grid that holds all atoms holds the sample too
     flat = np.empty(n, dtype=np.int64)
+    worst = 0.0
     for start in range(0, n, _LOCATE_CHUNK):
         part = slice(start, min(start + _LOCATE_CHUNK, n))
         chunk = _grid_sites(cell, _wrapped_fractional(cell, positions[part] - origin), grid, tol)
         if chunk is None:
             break
-        flat[part] = chunk
+        flat[part], worst = chunk[0], max(worst, chunk[1])
     else:
-        return GridSites(grid, flat, cell, positions)
+        return GridSites(grid, flat, cell, positions, tol, worst)
     located = _find_grid_sites(cell, _wrapped_fractional(cell, positions - origin), tol)
-    return None if located is None else GridSites(located[0], located[1], cell, positions)
+    return None if located is None else GridSites(*located[:2], cell, positions, tol,
+                                                   located[2])
 
 
 def _find_grid_sites(cell: np.ndarray, frac: np.ndarray, tol: float):
-    """(grid, flat site of each atom) for the smallest grid found, or None.
+    """(grid, flat site of each atom, bound of the atoms' distances from their
+    sites in A) for the smallest grid found, or None.
 
     None also for a grid of more than MAX_GRID_SITES_PER_ATOM sites per atom:
     such a fine grid is slower than the general engine.
@@ -137,9 +164,9 @@ def _find_grid_sites(cell: np.ndarray, frac: np.ndarray, tol: float):
         grid = _detect_grid(cell, atoms, tol)
         if grid is None or np.prod(grid, dtype=np.float64) > MAX_GRID_SITES_PER_ATOM * len(frac):
             return None
-        flat = _grid_sites(cell, frac, grid, tol)
-        if flat is not None:
-            return grid, flat
+        found = _grid_sites(cell, frac, grid, tol)
+        if found is not None:
+            return grid, *found
     return None
 
 
@@ -183,8 +210,9 @@ def _axis_grid(values: np.ndarray, frac_tol: float) -> int | None:
 
 
 def _grid_sites(cell: np.ndarray, frac: np.ndarray, grid: np.ndarray,
-                tol: float) -> np.ndarray | None:
-    """Flat index of each atom's grid site (C order), or None if one is > tol A off.
+                tol: float) -> tuple[np.ndarray, float] | None:
+    """Flat index of each atom's grid site (C order) and an upper bound (A) of the
+    atoms' distances from their sites, or None if one is > tol A off.
 
     None also when the grid has more than MAX_GRID_SITES sites.
     """
@@ -199,12 +227,14 @@ def _grid_sites(cell: np.ndarray, frac: np.ndarray, grid: np.ndarray,
     step = cell / grid[:, None]
     bound = _times(np.abs(residual), np.linalg.norm(step, axis=1)[:, None])[:, 0]
     unsure = np.flatnonzero(bound > tol)
+    worst = float(bound.max()) if len(bound) else 0.0
     if len(unsure):
         offset = _times(residual[unsure], step)
-        if np.einsum("ij,ij->i", offset, offset).max() > tol * tol:
+        worst = float(np.sqrt(np.einsum("ij,ij->i", offset, offset).max()))
+        if worst > tol:
             return None
     # Coordinates just below 1 round up to M: 'wrap' folds them onto site 0.
-    return np.ravel_multi_index(nearest.astype(np.int64).T, tuple(grid), mode="wrap")
+    return np.ravel_multi_index(nearest.astype(np.int64).T, tuple(grid), mode="wrap"), worst
 
 
 def _grid_offsets(cell: np.ndarray, grid: np.ndarray, cutoff: float) -> np.ndarray | None:
@@ -354,106 +384,3 @@ def _count_dtype(n_offsets: int):
     if n_offsets < 1 << 8:
         return np.uint8
     return np.uint16 if n_offsets < 1 << 16 else np.int32
-
-
-
-#: Ideal offset lengths closer than this (relative) are one distance: the
-#: rounding of symmetric offsets' lengths differs in the last bits.
-_SAME_LENGTH = 1e-9
-
-
-def grid_close_pairs(sites: GridSites, r: float, limit: int
-                     ) -> tuple[np.ndarray, np.ndarray, np.ndarray] | None:
-    """The ``limit`` closest pairs of atoms on a grid, or None (shared site, no
-    pair closer than ``r`` A between the ideal sites, too many offsets).
-
-    Pairs are chosen by their ideal (grid site) distance, ties by atom indices
-    (i, then j, i <= j); a pair is an atom and another atom or image, as in
-    :func:`cellbuild.neighbours.close_pairs`. The distances returned are those
-    of the actual positions (within the grid tolerance of the ideal ones),
-    ascending, ties by (i, j). Returns int64 i, j and float64 Angstrom.
-
-    Which offsets join occupied sites, and how many pairs each gives, is one
-    AND of the uint8 occupancy grid with its shifted view per offset; the atoms
-    are then scanned in index order, in chunks, only until the pairs needed
-    are found: a few milliseconds where a cell list over a million atoms takes
-    half a second.
-    """
-    if sites.shared or limit < 1:
-        return None
-    grid = sites.grid
-    offsets = _grid_offsets(sites.cell, grid, r)
-    if offsets is None or len(offsets) == 0:
-        return None
-    # each pair once: the offsets of one half space (first nonzero component > 0)
-    sign = np.sign(offsets)
-    first = sign[np.arange(len(offsets)), np.argmax(sign != 0, axis=1)]
-    offsets = offsets[first > 0]
-    lengths = np.linalg.norm(_times(offsets.astype(np.float64), sites.cell / grid[:, None]),
-                             axis=1)
-    order = np.argsort(lengths, kind="stable")
-    offsets, lengths = offsets[order], lengths[order]
-    occupancy = sites.occupancy.reshape(tuple(grid))
-    reach = np.abs(offsets).max(axis=0)
-    padded = np.pad(occupancy, [(k, k) for k in reach], mode="wrap")
-    joined = np.empty_like(occupancy)
-    m0, m1, m2 = occupancy.shape
-    groups, found, start = [], 0, 0
-    while start < len(offsets) and found < limit:  # shortest distances first
-        stop = int(np.searchsorted(lengths, lengths[start] * (1.0 + _SAME_LENGTH), "right"))
-        pairs = 0
-        for d0, d1, d2 in (offsets[start:stop] + reach).tolist():
-            np.bitwise_and(occupancy, padded[d0:d0 + m0, d1:d1 + m1, d2:d2 + m2], out=joined)
-            pairs += int(np.count_nonzero(joined))
-        if pairs:
-            groups.append((offsets[start:stop], min(pairs, limit - found)))
-            found += pairs
-        start = stop
-    if found == 0:
-        return None
-    atom_at = np.full(int(np.prod(grid)), -1, dtype=np.int64)
-    atom_at[sites.flat] = np.arange(len(sites.flat))
-    picked = [_first_pairs(sites, atom_at, group, need) for group, need in groups]
-    i, j, shift = (np.concatenate(parts) for parts in zip(*picked))
-    # the actual vectors: the grid offset corrected by both atoms' residuals
-    frac = sites.frac_of(np.concatenate([i, j]))
-    diff = frac[len(i):] - frac[:len(i)]
-    step = shift / grid
-    d = np.linalg.norm(_times(diff + np.rint(step - diff), sites.cell), axis=1)
-    rank = np.lexsort((j, i, d))
-    return i[rank], j[rank], d[rank]
-
-
-def _first_pairs(sites: GridSites, atom_at: np.ndarray, offsets: np.ndarray, need: int
-                 ) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
-    """The ``need`` pairs (i, j, offset from i's site to j's) with the smallest
-    (i, j), i <= j, joined by one of ``offsets`` (a half space) or their negatives.
-
-    A pair (atom a on site s, atom b on s + o) is listed from its smaller index:
-    from a with +o when b >= a, from b with -o when a > b (an atom and its own
-    image, a == b, once). Atoms are scanned in index order in chunks, so the
-    scan stops at the chunk that completes the pairs.
-    """
-    grid, flat = sites.grid, sites.flat
-    signed = np.concatenate([offsets, -offsets])
-    plus = np.r_[np.ones(len(offsets), bool), np.zeros(len(offsets), bool)]
-    got_i, got_j, got_o = [], [], []
-    count = 0
-    for start in range(0, len(flat), _LOCATE_CHUNK // 8):
-        part = np.arange(start, min(start + _LOCATE_CHUNK // 8, len(flat)))
-        axes = np.unravel_index(flat[part], tuple(grid))
-        shifted = np.empty(len(part), dtype=np.int64)
-        for k, o in enumerate(signed.tolist()):
-            partner = atom_at[_shifted_sites(grid, axes, o, out=shifted)]
-            keep = partner >= part if plus[k] else partner > part
-            keep &= partner >= 0
-            if keep.any():
-                got_i.append(part[keep])
-                got_j.append(partner[keep])
-                got_o.append(np.broadcast_to(np.asarray(o, np.int64), (int(keep.sum()), 3)))
-                count += int(keep.sum())
-        if count >= need:  # later chunks hold larger first indices only
-            break
-    i, j, o = np.concatenate(got_i), np.concatenate(got_j), np.concatenate(got_o)
-    take = np.lexsort((j, i))[:need]
-    return i[take], j[take], o[take].astype(np.float64)

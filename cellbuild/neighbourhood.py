@@ -29,11 +29,15 @@ class Neighbourhood:
         cell: (3, 3) lattice vectors as rows, Angstrom.
         positions: (N, 3) Cartesian positions, Angstrom (not copied: the caller
             must not change them while the neighbourhood is used).
+        sites: the grid these atoms sit on (:func:`cellbuild.neighbours.locate_grid`),
+            if any: the pair queries then read the occupancy grid instead of a
+            cell list (:mod:`cellbuild.grid_pairs`).
     """
 
-    def __init__(self, cell, positions) -> None:
+    def __init__(self, cell, positions, sites=None) -> None:
         self.cell = _checked_cell(cell)
         self.positions = _checked_positions(positions)
+        self.sites = sites
         self._frac: np.ndarray | None = None
         self._bins: dict[float, _Bins] = {}
 

@@ -55,6 +55,7 @@ from dataclasses import dataclass
 import numpy as np
 
 from .cell_list import (MAX_COUNTED_PAIRS, MAX_LISTED_PAIRS, PairLimitError, _build_bins,
+                        _check_budget,
                         _chunks, _collect_distances, _collect_pairs, _count_chunks,
                         _estimated_pairs, _in_threads, _pairs_in_chunk, _shortest,
                         _total_half_candidates, uniform_pairs)
@@ -62,7 +63,8 @@ from .cellgeom import (_checked_cell, _checked_positions, _checked_radius, _thre
                        _wrapped_fractional, perpendicular_widths)
 from .neighbour_grid import (MAX_GRID_OFFSETS, MAX_GRID_SITES, GridSites,
                              _count_occupied_offsets, _grid_min_distance,
-                             _grid_offsets, _grid_sites, grid_close_pairs, locate_grid)
+                             _grid_offsets, _grid_sites, locate_grid)
+from .grid_pairs import grid_close_pairs, grid_nearest, grid_pair_sample, grid_pairs_of
 from .neighbourhood import REUSE_FACTOR, Neighbourhood
 
 __all__ = ["GridSites", "MAX_COUNTED_PAIRS", "MAX_GRID_OFFSETS", "MAX_GRID_SITES",
@@ -165,9 +167,10 @@ def grid_counts(cell, positions, cutoff, grid=None, tol=1e-6,
     grid = np.asarray(grid, dtype=np.int64).reshape(3)
     if np.any(grid < 1):
         raise ValueError(f"grid divisions must be >= 1, got {tuple(grid)}")
-    flat = _grid_sites(cell, frac, grid, tol)
-    if flat is None:
+    found = _grid_sites(cell, frac, grid, tol)
+    if found is None:
         return None
+    flat = found[0]
     occupancy = np.bincount(flat, minlength=int(np.prod(grid)))
     if occupancy.max() > 1:
         return None  # two atoms on one site
@@ -267,6 +270,10 @@ def pairs_of(cell, positions, centres, r, *, max_pairs=MAX_LISTED_PAIRS,
     centres = np.asarray(centres, dtype=np.int64)
     if len(positions) == 0 or len(centres) == 0:
         return np.zeros(0, np.int64), np.zeros(0, np.int64), np.zeros(0)
+    sites = _sites_of(near, cell, positions)
+    found = None if sites is None else grid_pairs_of(sites, centres, r, max_pairs)
+    if found is not None:
+        return found
     bins = _bins_for(near, cell, positions, r, math.inf, REUSE_FACTOR)
     chunks = _chunks(bins, half=False, centres=np.sort(bins.rank[centres]),
                      limit=(r, int(max_pairs), "a pair list holds"))
@@ -302,6 +309,12 @@ def nearest_neighbours(cell, positions, r, *, centres=None, workers=2,
     partner = np.full(len(centres), -1, dtype=np.int64)
     if n == 0 or len(centres) == 0:
         return best, partner
+    sites = _sites_of(near, cell, positions)
+    if sites is not None:
+        _check_budget(cell, n, r, MAX_COUNTED_PAIRS)  # the cell list's refusal, kept
+        found = grid_nearest(sites, centres, r)
+        if found is not None:
+            return found
     bins = _bins_for(near, cell, positions, r, MAX_COUNTED_PAIRS)
     ranks = bins.rank[centres]
     order = np.argsort(ranks, kind="stable")
@@ -374,9 +387,16 @@ def pair_sample(cell, positions, r_max, *, max_pairs=None, workers=2,
     if n == 0:
         return PairSample(np.zeros(0, dtype=np.float64), 0)
     cap = MAX_LISTED_PAIRS if max_pairs is None else int(max_pairs)
+    m = n if max_pairs is None else sampled_centre_count(cell, n, r_max, max_pairs)
+    sites = _sites_of(near, cell, positions)
+    if sites is not None:
+        if max_pairs is None:
+            _check_budget(cell, n, r_max, MAX_LISTED_PAIRS)  # the cell list's refusal, kept
+        found = grid_pair_sample(sites, r_max, m, max_pairs)
+        if found is not None:
+            return PairSample(*found)
     bins = _bins_for(near, cell, positions, r_max,
                      MAX_LISTED_PAIRS if max_pairs is None else math.inf)
-    m = n if max_pairs is None else sampled_centre_count(cell, n, r_max, max_pairs)
     # candidates the m centres would examine (each pair once when m = N)
     candidates = float(_total_half_candidates(bins))
     if m < n:
@@ -432,6 +452,15 @@ def _bins_for(near: Neighbourhood | None, cell: np.ndarray, positions: np.ndarra
     if near is not None and near.same(cell, positions):
         return near.bins(r, limit, reuse, keep)
     return _build_bins(cell, positions, r, limit=limit)
+
+
+def _sites_of(near: Neighbourhood | None, cell: np.ndarray,
+              positions: np.ndarray) -> GridSites | None:
+    """The grid of a query's atoms when ``near`` (this structure's) holds one
+    with no shared site: the grid answers the query (:mod:`cellbuild.grid_pairs`)."""
+    if near is None or near.sites is None or near.sites.shared:
+        return None
+    return near.sites if near.same(cell, positions) else None
 
 
 def _closest_pair_within(cell: np.ndarray, positions: np.ndarray, radius: float,

@@ -10,6 +10,7 @@ Sources of the expected values:
 """
 from __future__ import annotations
 
+import itertools
 import math
 
 import numpy as np
@@ -552,3 +553,63 @@ def test_grid_close_pairs_declines_shared_sites_and_empty_radius():
     assert grid_close_pairs(locate_grid(cell, positions), 0.5, 5) is None  # below a/sqrt2
     doubled = np.vstack([positions, positions[:1]])
     assert grid_close_pairs(locate_grid(cell, doubled), 3.0, 5) is None
+
+
+def on_grid_cases():
+    """Structures on a grid: exactly on the sites, and 1e-7 A off them (within
+    the grid tolerance, beyond the distance at which sites stand for atoms)."""
+    rng = np.random.default_rng(11)
+    for lattice, repeat in (("fcc", (3, 3, 2)), ("diamond", (2, 2, 2)), ("bcc", (3, 3, 3))):
+        atoms = crystal(lattice, repeat)
+        del atoms[rng.choice(len(atoms), size=len(atoms) // 6, replace=False)]
+        yield pytest.param(atoms, id=f"{lattice}-vacancies")
+        nudged = atoms.copy()
+        nudged.positions += rng.uniform(-1e-7, 1e-7, size=nudged.positions.shape) / S3
+        yield pytest.param(nudged, id=f"{lattice}-vacancies-1e-7")
+    yield pytest.param(bulk("Cu", "fcc", a=3.6).repeat((2, 3, 2)), id="fcc-primitive")
+
+
+@pytest.mark.parametrize("atoms", on_grid_cases())
+def test_grid_pair_queries_match_ase_and_the_cell_list(atoms):
+    """pairs_of, nearest_neighbours and pair_sample answered from the occupancy
+    grid (a Neighbourhood holding the grid) against ASE's neighbour list and the
+    cell-list engine (no Neighbourhood)."""
+    from cellbuild.neighbours import Neighbourhood, nearest_neighbours, pair_sample, pairs_of
+
+    cell, positions = cell_and_positions(atoms)
+    sites = locate_grid(cell, positions)
+    assert sites is not None
+    near = Neighbourhood(cell, positions, sites)
+    r = 1.3 * {ELEMENT[k]: A[k] for k in A}[atoms.get_chemical_symbols()[0]]  # 1.3 a
+    ai, aj, ad = neighbor_list("ijd", atoms, r)  # ASE as the reference
+    centres = np.array([0, 3, len(atoms) - 1, 7])
+    i, j, d = pairs_of(cell, positions, centres, r, near=near)
+    assert [k for k, _ in itertools.groupby(i.tolist())] == centres.tolist()  # in order
+    want = sorted((a, b, round(x, 9)) for a, b, x in zip(ai, aj, ad) if a in centres)
+    assert sorted((a, b, round(x, 9)) for a, b, x in zip(i.tolist(), j.tolist(), d)) == want
+    best, partner = nearest_neighbours(cell, positions, r, near=near)
+    alone_best, _ = nearest_neighbours(cell, positions, r)
+    np.testing.assert_allclose(best, alone_best, rtol=0, atol=1e-12)
+    for k in range(len(atoms)):
+        mine = ad[ai == k]
+        assert best[k] == pytest.approx(mine.min(), abs=1e-12)
+        # the partner is one of the atoms at that distance
+        assert partner[k] in aj[ai == k][np.abs(mine - mine.min()) < 1e-9]
+    for max_pairs in (None, 300):  # every pair once, and sampled centres
+        grid = pair_sample(cell, positions, 2.0 * r, max_pairs=max_pairs, near=near)
+        cells = pair_sample(cell, positions, 2.0 * r, max_pairs=max_pairs)
+        assert grid.centres == cells.centres
+        np.testing.assert_allclose(grid.distances, cells.distances, rtol=0, atol=1e-12)
+
+
+def test_grid_pair_sample_refuses_like_the_cell_list():
+    from cellbuild.neighbours import Neighbourhood, PairLimitError, pair_sample, pairs_of
+
+    atoms = crystal("fcc", (3, 3, 3))
+    cell, positions = cell_and_positions(atoms)
+    near = Neighbourhood(cell, positions, locate_grid(cell, positions))
+    with pytest.raises(PairLimitError):
+        pairs_of(cell, positions, np.arange(len(atoms)), 8.0, max_pairs=1000, near=near)
+    # a sample bounded by max_pairs keeps about that many distances
+    sample = pair_sample(cell, positions, 8.0, max_pairs=2000, near=near)
+    assert 0 < sample.centres < len(atoms) and len(sample.distances) <= 2 * 2000
