@@ -3,8 +3,8 @@
 Recent Typer releases (0.2x) coerce every parameter value through a pydantic
 ``TypeAdapter``, built the first time a command runs; importing pydantic and
 building the adapters took about 110 ms of the 0.4 s a `cellbuild plan` takes,
-while our commands only take text, paths, flags and lists of paths. For those
-four types, :func:`command` gives each parameter a coercion that does what
+while our commands only take text, numbers, paths, flags and lists of paths.
+For those five types, :func:`command` gives each parameter a coercion that does what
 Typer's adapter does with a value from the command line (a path: ``Path(text)``,
 then Typer's own existence and permission checks; text: the text itself), and
 leaves every other type and every unexpected value to Typer's own adapter, so
@@ -13,6 +13,7 @@ coercion layer (older releases), nothing is changed.
 """
 from __future__ import annotations
 
+import re
 from pathlib import Path
 from typing import Any, List
 
@@ -58,7 +59,11 @@ def _commands(cmd) -> list:
 
 
 _PATHS = (List[Path], list[Path])
-_PLAIN = (str, bool, Path, *_PATHS)
+_PLAIN = (str, bool, float, Path, *_PATHS)
+#: A number written the way every parser reads alike (no inf, nan, underscores,
+#: spaces or leading zeros): float(text) is pydantic's answer for it; any other
+#: text goes to Typer's adapter, which words the refusal.
+_PLAIN_FLOAT = re.compile(r"[+-]?(?:0|[1-9][0-9]*)(?:\.[0-9]+)?(?:[eE][+-]?[0-9]+)?")
 
 
 def _is_plain(descriptor) -> bool:
@@ -82,8 +87,9 @@ def _plain_class():
     @dataclass(frozen=True)
     class PlainRuntimeParam(RuntimeParam):
         """What Typer's adapters return for a command-line text (``str``): the text
-        for ``str``, ``Path(text)`` plus Typer's checks for ``Path``, a list of
-        those for ``List[Path]``. Anything else goes to Typer's adapter."""
+        for ``str``, ``float(text)`` for a plainly written ``float``, ``Path(text)``
+        plus Typer's checks for ``Path``, a list of those for ``List[Path]``.
+        Anything else goes to Typer's adapter."""
 
         def _coerce_value(self, value: Any, param, ctx) -> Any:
             annotation = self.annotation
@@ -91,6 +97,8 @@ def _plain_class():
                 return value
             if annotation is bool and isinstance(value, bool):
                 return value
+            if annotation is float and isinstance(value, str) and _PLAIN_FLOAT.fullmatch(value):
+                return float(value)
             if annotation is Path and isinstance(value, str):
                 return self._path(value, param, ctx)
             if (annotation in _PATHS and isinstance(value, (list, tuple))

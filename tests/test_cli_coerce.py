@@ -21,6 +21,9 @@ from cellbuild import cli, cli_coerce
 
 ROOT = Path(__file__).resolve().parent.parent
 RECIPE = str(ROOT / "recipes" / "al-host-perfect.yaml")
+#: A small structure file (an extended XYZ of 4 fcc atoms, written here by hand
+#: with the conventional cell of a = 3.6 A).
+STRUCTURE = str(ROOT / "tests" / "data" / "fcc-cell.xyz")
 SMALL = ("name: small\ncrystal: {element: Cu, lattice: fcc, a: 3.615}\nsize: {repeat: 2}\n"
          "seed: 1\noutputs: [lammps-data, xyz]\ndefects: {vacancies: {count: 1}}\n")
 
@@ -47,6 +50,9 @@ def _run(argv, capsys, monkeypatch, primed: bool):
     ["plan", "no-such-recipe.yaml"], ["plan", ""], ["plan", "--bogus"], ["plan", RECIPE, RECIPE],
     ["template", "fcc"], ["template", "nothing"], ["make", RECIPE], ["make", "--out", "x"],
     ["inspect", RECIPE, "--cutoff", "abc"], ["inspect", "no-such-file.xyz"],
+    *(["inspect", STRUCTURE, "--cutoff", text, "--json"] for text in
+      ("3.0", "-2", "2.5e0", "1E1", "0", "inf", "nan", "1_0", " 3", "03", "3.", ".5", "")),
+    ["inspect", STRUCTURE, "--potential-cutoff", "1.5"],
     ["--debug", "template", "bcc"],
 ])
 def test_same_answers_as_typers_own_coercion(argv, capsys, monkeypatch):
@@ -82,7 +88,8 @@ def test_values_arrive_as_typer_would_give_them(monkeypatch):
     assert template.params["lattice"] == "fcc"
 
 
-@pytest.mark.parametrize("argv", [["plan", RECIPE], ["template", "fcc"], ["--help"]])
+@pytest.mark.parametrize("argv", [["plan", RECIPE], ["template", "fcc"], ["--help"],
+                                  ["inspect", STRUCTURE, "--cutoff", "3.0"]])
 def test_plain_commands_do_not_import_pydantic(argv):
     script = ("import sys\nfrom cellbuild.cli import main\ntry:\n    main(sys.argv[1:])\n"
               "except SystemExit:\n    pass\nprint('pydantic' in sys.modules)\n")
