@@ -101,16 +101,8 @@ def warren_cowley(structure, crystal, repeat: tuple[int, int, int],
         conc = per / per.sum()
         distances, shells = sublattice_shells(crystal, label, n_shells)
         pair_counts = []
-        scaled = {s: grid[..., s] * k for s in sites}  # the centre's code, times k
         for offsets in shells:
-            counts = np.zeros(k * k, dtype=np.int64)
-            # each bond once (its reverse offset gives the transposed counts)
-            for s, (di, dj, dk), t in offsets:
-                if (t, (-di, -dj, -dk), s) < (s, (di, dj, dk), t):
-                    continue
-                partner = np.roll(grid[..., t], (-di, -dj, -dk), axis=(0, 1, 2))
-                counts += np.bincount((scaled[s] + partner).ravel(), minlength=k * k)
-            half = counts.reshape(k, k)
+            half = _bond_counts(grid, offsets, k).reshape(k, k)
             pair_counts.append(half + half.T)
         pair_counts = np.array(pair_counts)
         alphas = alpha_table(pair_counts[:, :m, :m], structure.symbols, conc, present)
@@ -120,6 +112,36 @@ def warren_cowley(structure, crystal, repeat: tuple[int, int, int],
         if on_sites[m]:
             out[label]["vacancies"] = _vacancy_order(pair_counts, on_sites, structure.symbols)
     return out or None
+
+
+#: Bonds x cells up to which a shell's pairs are gathered in one pass (small
+#: structures: one bincount per shell instead of a shifted copy per offset,
+#: whose fixed cost was most of the order's time in a library of 107-atom cells).
+_GATHER_BONDS = 1 << 16
+
+
+def _bond_counts(grid: np.ndarray, offsets, k: int) -> np.ndarray:
+    """(k * k,) int64 counts of (centre code, partner code) over the bonds
+    ``offsets`` of one shell, each bond once (its reverse offset would give the
+    transposed counts); ``grid`` is (R1, R2, R3, sites per cell) of codes < k."""
+    bonds = [(s, d, t) for s, d, t in offsets if not (t, tuple(-x for x in d), s) < (s, d, t)]
+    repeat = grid.shape[:3]
+    n_cells = math.prod(repeat)
+    if n_cells * len(bonds) <= _GATHER_BONDS:
+        flat = grid.reshape(-1)
+        cell = np.arange(n_cells)
+        axes = np.unravel_index(cell, repeat)
+        s, d, t = (np.array(x) for x in zip(*bonds)) if bonds else (np.zeros(0, int),) * 3
+        # the partner of bond b in cell (i, j, k): cell (i, j, k) + d_b, site t_b
+        shifted = [(axes[a][:, None] + d[None, :, a]) % repeat[a] for a in range(3)]
+        partner = np.ravel_multi_index(shifted, repeat) * grid.shape[3] + t[None, :]
+        centre = cell[:, None] * grid.shape[3] + s[None, :]
+        return np.bincount((flat[centre] * k + flat[partner]).ravel(), minlength=k * k)
+    counts = np.zeros(k * k, dtype=np.int64)
+    for s, (di, dj, dk), t in bonds:  # large grids: a shifted copy per offset streams
+        partner = np.roll(grid[..., t], (-di, -dj, -dk), axis=(0, 1, 2))
+        counts += np.bincount((grid[..., s] * k + partner).ravel(), minlength=k * k)
+    return counts
 
 
 def _vacancy_order(pair_counts, on_sites, symbols) -> dict:
