@@ -22,6 +22,7 @@ from pathlib import Path
 import numpy as np
 
 from .errors import InputError
+from .fixed_columns import loadtxt_fixed
 from .structure import Structure
 
 
@@ -344,9 +345,8 @@ _NUMBER_COLUMNS = _CIF_COORDINATES + ("_atom_site_occupancy",)
 
 @dataclass(frozen=True)
 class PlainTable:
-    """The atom-site loop parsed in one ``numpy.loadtxt`` call (in C, numbers
-    correctly rounded like Python's ``float``): one row per line, every line
-    with one field per column (loadtxt refuses anything else)."""
+    """The atom-site loop in one parse (``loadtxt_fixed``, else ``numpy.loadtxt``; numbers
+    correctly rounded): one row per line, one field per column (loadtxt refuses the rest)."""
 
     loop: _CifLoop
     rows: np.ndarray  # structured, field "cK" for column K
@@ -360,19 +360,19 @@ def plain_atom_table(loops: list[_CifLoop]) -> PlainTable | None:
     anything but plain rows of plain numbers and words (then the checks and
     readers take the text path, field by field)."""
     table = _atom_site_loop(loops)
-    if table is None or not table.body.isascii():
+    if table is None or not table.body.isascii() or not table.heads:
         return None
     raw = table.body.encode("ascii")
-    if raw.translate(None, _PLAIN_TABLE_BYTES):
+    if raw.translate(None, _PLAIN_TABLE_BYTES) or not raw.strip():
         return None
     symbol = "_atom_site_type_symbol" if "_atom_site_type_symbol" in table.heads \
         else "_atom_site_label"
     dtype = np.dtype([(f"c{k}", "f8" if h in _NUMBER_COLUMNS else "S8" if h == symbol else "S1")
                       for k, h in enumerate(table.heads)])
-    if not table.heads or not raw.strip():
-        return None
-    try:
-        rows = np.loadtxt(io.BytesIO(raw), dtype=dtype, comments=None, ndmin=1)
+    try:  # fixed-width columns in whole-array passes (the same array), else loadtxt
+        rows = loadtxt_fixed(raw, dtype=dtype, comments=None, ndmin=1)
+        if rows is None:
+            rows = np.loadtxt(io.BytesIO(raw), dtype=dtype, comments=None, ndmin=1)
     except ValueError:
         return None
     return PlainTable(table, rows)

@@ -4,7 +4,8 @@ Holds the LAMMPS data header parser (counts, box bounds and tilts, masses, atom
 style; the atom rows are jumped over by byte offsets, not parsed) and its
 checks, the element of an atom type from its mass (:func:`element_of_mass`),
 and the numpy fast row reader: :func:`skip_lines` and :func:`load_rows` (the
-block of rows found by byte offsets, one ``numpy.loadtxt`` call), which the
+block of rows found by byte offsets, parsed in one call: the fixed-width parser
+of :mod:`cellbuild.fixed_columns`, else ``numpy.loadtxt``), which the
 extended XYZ fast path of :mod:`cellbuild.readers` shares, and
 :func:`fast_lammps`, which reads the atom rows into a :class:`Structure`.
 The file is read once, as bytes, and shared by the header parser and the rows. Every failure is an
@@ -21,6 +22,7 @@ from pathlib import Path
 import numpy as np
 
 from .errors import InputError
+from .fixed_columns import loadtxt_fixed
 from .structure import Structure
 
 #: Largest difference (u) between a LAMMPS mass and a standard atomic weight
@@ -245,8 +247,10 @@ def _row_span(data: bytes, start: int, n: int) -> tuple[int, int] | None:
 def load_rows(path: Path, data: bytes, start: int, first: int, n: int,
               usecols, dtype) -> tuple[np.ndarray, int]:
     """``n`` rows from byte offset ``start`` (0-based line ``first``) parsed by
-    ``numpy.loadtxt`` (in C, correctly rounded like Python's ``float``), and the
-    offset past the last row's newline (``len(data) + 1`` when it has none).
+    ``numpy.loadtxt`` (in C, correctly rounded like Python's ``float``; fixed-width
+    rows by :func:`~cellbuild.fixed_columns.loadtxt_fixed`, which gives the same
+    array), and the offset past the last row's newline (``len(data) + 1`` when
+    it has none).
 
     Raises InputError (with the line) when the file ends early or its last row
     is cut short; ValueError when a row does not parse otherwise (the caller
@@ -263,8 +267,12 @@ def load_rows(path: Path, data: bytes, start: int, first: int, n: int,
                          file=str(path), line=first + n)
     block = data[start:stop - 1]
     ndmin = 1 if isinstance(usecols, int) or np.dtype(dtype).names else 2
-    rows = np.loadtxt(io.BytesIO(block), usecols=usecols, dtype=dtype, comments="#",
-                      ndmin=ndmin)
+    # fixed-width columns (as cellbuild writes them) in whole-array passes, the
+    # same doubles as loadtxt; anything else through loadtxt
+    rows = loadtxt_fixed(block, usecols=usecols, dtype=dtype, comments="#", ndmin=ndmin)
+    if rows is None:
+        rows = np.loadtxt(io.BytesIO(block), usecols=usecols, dtype=dtype, comments="#",
+                          ndmin=ndmin)
     if len(rows) != n:
         raise ValueError(f"{len(rows)} rows parsed, {n} expected")  # blank lines inside
     return rows, stop
