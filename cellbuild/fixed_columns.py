@@ -162,18 +162,19 @@ def _fields(dtype, usecols, ndmin, comments):
 
 
 def _table(text) -> _Table | None:
-    """The rows of ``text`` when they all have one length and hold printable
+    """The rows of ``text`` (bytes, or a memoryview of bytes: a block of a file
+    read without copying it) when they all have one length and hold printable
     ASCII only; leading empty lines are skipped, as loadtxt skips them."""
-    if not isinstance(text, bytes):
+    if not isinstance(text, (bytes, memoryview)):
         return None
+    flat = np.frombuffer(text, dtype=np.uint8)
     first = _LEADING_NEWLINES.match(text).end()
-    end = len(text) - text.endswith(b"\n")
-    newline = text.find(b"\n", first, end)
+    end = len(flat) - bool(len(flat) and flat[-1] == NEWLINE)
+    newline = _first_newline(flat, first, end)
     width = (end if newline < 0 else newline) - first + 1
     if end <= first or (end - first + 1) % width:
         return None
     rows = (end - first + 1) // width
-    flat = np.frombuffer(text, dtype=np.uint8)
     whole = flat[first:first + (rows - 1) * width].reshape(rows - 1, width)
     # reduced as lines of many rows: long inner loops, one pass over the bytes
     group = max(1, 4096 // width)
@@ -188,6 +189,18 @@ def _table(text) -> _Table | None:
     if low[:-1].min() < _PRINTABLE[0] or high[:-1].max() > _PRINTABLE[1]:
         return None  # a newline inside a row (ragged rows), a tab, a byte past ASCII
     return _Table(flat, first, rows, width, low[:-1], high[:-1])
+
+
+def _first_newline(flat: np.ndarray, start: int, end: int) -> int:
+    """Offset of the first newline in ``flat[start:end]``, or -1; looked for in
+    windows that grow fourfold (a row is short next to the text)."""
+    size = 256
+    while start < end:
+        window = flat[start:min(end, start + size)] == NEWLINE
+        if window.any():
+            return start + int(np.argmax(window))
+        start, size = start + size, size * 4
+    return -1
 
 
 def _spans(table: _Table) -> list[_Span] | None:

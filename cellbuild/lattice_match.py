@@ -37,7 +37,9 @@ from __future__ import annotations
 
 import math
 from dataclasses import dataclass
+from functools import lru_cache
 from itertools import product
+from types import MappingProxyType
 
 import numpy as np
 
@@ -122,8 +124,10 @@ def _shells_of(cell: np.ndarray, basis: np.ndarray) -> tuple[tuple[float, ...], 
     return tuple(radii.tolist()), tuple(int(c) for c in counts)
 
 
-def patterns() -> dict[str, Pattern]:
-    """The candidate lattices, derived from their lattice vectors and bases."""
+@lru_cache(maxsize=1)
+def patterns() -> MappingProxyType[str, Pattern]:
+    """The candidate lattices, derived from their lattice vectors and bases (once
+    per process: the tables are fixed; read-only)."""
     found = {}
     for name, lattice in LATTICES.items():
         distances, counts = _shells_of(np.eye(3), lattice.basis_array())
@@ -135,7 +139,7 @@ def patterns() -> dict[str, Pattern]:
     distances, counts = _shells_of(hexagonal, np.array([[0.0, 0.0, 0.0],
                                                         [1.0 / 3.0, 2.0 / 3.0, 0.5]]))
     found["hcp"] = Pattern("hcp", distances, counts, 2.0 / abs(np.linalg.det(hexagonal)), 1.0)
-    return found
+    return MappingProxyType(found)
 
 
 @dataclass(frozen=True)

@@ -256,6 +256,17 @@ def load_rows(path: Path, data: bytes, start: int, first: int, n: int,
     is cut short; ValueError when a row does not parse otherwise (the caller
     then lets ASE read the file and explain).
     """
+    ndmin = 1 if isinstance(usecols, int) or np.dtype(dtype).names else 2
+    # rows of the first row's width: the fixed-width parser checks every row's
+    # length, so n rows parsed from n widths are the block (no newline count)
+    end, tried = data.find(b"\n", start), None
+    guess = start + n * (end + 1 - start)
+    if end >= 0 and (guess == len(data) + 1 or guess <= len(data) and data[guess - 1] == 10):
+        rows = loadtxt_fixed(memoryview(data)[start:guess - 1], usecols=usecols, dtype=dtype,
+                             comments="#", ndmin=ndmin)
+        if rows is not None and len(rows) == n:
+            return rows, guess
+        tried = guess
     span = _row_span(data, start, n)
     if span is None or not data[span[0]:].strip():
         raise InputError(f"ends before its {n:,} atom rows are complete; the file looks "
@@ -266,10 +277,10 @@ def load_rows(path: Path, data: bytes, start: int, first: int, n: int,
         raise InputError("ends in the middle of an atom row; the file looks truncated",
                          file=str(path), line=first + n)
     block = data[start:stop - 1]
-    ndmin = 1 if isinstance(usecols, int) or np.dtype(dtype).names else 2
     # fixed-width columns (as cellbuild writes them) in whole-array passes, the
     # same doubles as loadtxt; anything else through loadtxt
-    rows = loadtxt_fixed(block, usecols=usecols, dtype=dtype, comments="#", ndmin=ndmin)
+    rows = None if stop == tried else loadtxt_fixed(block, usecols=usecols, dtype=dtype,
+                                                    comments="#", ndmin=ndmin)
     if rows is None:
         rows = np.loadtxt(io.BytesIO(block), usecols=usecols, dtype=dtype, comments="#",
                           ndmin=ndmin)

@@ -160,30 +160,38 @@ def _vacancy_order(pair_counts, on_sites, symbols) -> dict:
 INSPECT_CENTRES = 20_000
 
 
-def warren_cowley_of_file(structure, shell_radii: list[float], near=None) -> dict | None:
+def warren_cowley_of_file(structure, shell_radii: list[float], near=None,
+                          members: np.ndarray | None = None) -> dict | None:
     """Alphas of a structure read from a file whose atoms share one lattice (an
     alloy): ``shell_radii`` are the ideal shell distances (A); pairs are assigned to
     the nearest shell within half the gap to its neighbours. Up to INSPECT_CENTRES
     centres (all atoms when fewer; else a seeded draw, whose count is reported);
     None with fewer than two species. ``near``: the structure's Neighbourhood
-    (:mod:`cellbuild.neighbourhood`), whose cell lists the pair search uses."""
+    (:mod:`cellbuild.neighbourhood`), whose cell lists or grid the pair search uses.
+    ``members``: (N,) bool, the atoms of one sublattice, when only they share the
+    lattice (the others are left out of the pairs, as if absent)."""
     from .neighbours import pairs_of
 
     m = len(structure.symbols)
-    per = np.bincount(structure.species, minlength=m)
+    species = structure.species if members is None else structure.species[members]
+    per = np.bincount(species, minlength=m)
     present = np.flatnonzero(per)
     if len(present) < 2 or len(shell_radii) < 2:
         return None
     radii = np.array(shell_radii[:SHELLS + 1], dtype=float)
     edges = np.concatenate([[0.5 * radii[0]], 0.5 * (radii[1:] + radii[:-1])])
     n_shells = len(radii) - 1  # the last radius only bounds the last shell
-    n = structure.n_atoms
+    n = len(species)
     centres = np.arange(n) if n <= INSPECT_CENTRES else np.sort(
         np.random.default_rng(0).choice(n, INSPECT_CENTRES, replace=False))
+    if members is not None:  # the i-th member is atom flatnonzero(members)[i]
+        centres = np.flatnonzero(members)[centres]
     i, j, d = pairs_of(structure.cell, structure.positions, centres, float(edges[n_shells]),
                        near=near)
     shell = np.searchsorted(edges, d) - 1  # edges[k] <= d < edges[k + 1]: shell k
     ok = (shell >= 0) & (shell < n_shells)
+    if members is not None:
+        ok &= members[j]
     conc = per / n
     code = structure.species[i[ok]] * m + structure.species[j[ok]]
     counts = np.bincount(shell[ok] * m * m + code, minlength=n_shells * m * m)
@@ -201,9 +209,9 @@ def order_of_file(structure, prototype: dict | None, lattice_radii: list[float] 
     shells from that sublattice's own geometry at the matched lattice constant;
     otherwise, when the atoms share one lattice (``lattice_radii``, its ideal shell
     distances in Angstrom), that lattice as sublattice ``A``. None when no
-    sublattice is mixed. ``near``: the structure's Neighbourhood (shared cell lists)."""
+    sublattice is mixed. ``near``: the structure's Neighbourhood (shared cell lists
+    or grid)."""
     from .crystal import resolve_crystal
-    from .structure import Structure
 
     if prototype is None:
         if lattice_radii is None:
@@ -216,9 +224,7 @@ def order_of_file(structure, prototype: dict | None, lattice_radii: list[float] 
     for label, occupants in (prototype.get("occupants") or {}).items():
         distances, _ = sublattice_shells(crystal, label, SHELLS + 1)
         keep = np.isin(structure.species, [structure.symbols.index(e) for e in occupants])
-        on_it = Structure(structure.cell, structure.positions[keep], structure.species[keep],
-                          structure.symbols)
-        found = warren_cowley_of_file(on_it, distances)
+        found = warren_cowley_of_file(structure, distances, near, members=keep)
         if found is not None:
             out[label] = found
     return out or None
