@@ -96,12 +96,15 @@ def grid_pairs_of(sites: GridSites, centres: np.ndarray, r: float, max_pairs: fl
     found = _neighbours(sites, centres, r, max_pairs)
     if found is None:
         return None
-    slot, j, shift = found
+    slot, j, which, offsets = found
     i = centres[slot]
-    d = _actual_distances(sites, i, j, shift)
-    keep = d < r
-    order = np.argsort(slot[keep], kind="stable")
-    return i[keep][order], j[keep][order], d[keep][order]
+    d = _offset_distances(sites, i, j, offsets, which)
+    keep = np.flatnonzero(d < r)
+    slot = slot[keep]
+    # grouped by centre, stably: numpy's radix sort for 16-bit keys, when they fit
+    order = keep[np.argsort(slot.astype(np.uint16) if len(centres) <= 1 << 16 else slot,
+                            kind="stable")]
+    return i[order], j[order], d[order]
 
 
 def grid_nearest(sites: GridSites, centres: np.ndarray, r: float
@@ -207,9 +210,20 @@ def _actual_distances(sites: GridSites, i: np.ndarray, j: np.ndarray,
     return np.sqrt(np.einsum("ij,ij->i", vector, vector))
 
 
+def _offset_distances(sites: GridSites, i: np.ndarray, j: np.ndarray, offsets: np.ndarray,
+                      which: np.ndarray) -> np.ndarray:
+    """:func:`_actual_distances` for pairs at grid offsets ``offsets[which]``: on
+    exact sites each offset's length once, gathered per pair."""
+    if sites.worst <= EXACT_SITES:
+        vector = _times(offsets.astype(np.float64), sites.cell / sites.grid[:, None])
+        return np.sqrt(np.einsum("ij,ij->i", vector, vector))[which]
+    return _actual_distances(sites, i, j, offsets[which])
+
+
 def _neighbours(sites: GridSites, centres: np.ndarray, r: float, max_pairs: float):
-    """(slot in centres, neighbour atom, offset) of the occupied sites within the
-    ideal radius r + 2 tol of each centre, or None (too many offsets)."""
+    """(slot in centres, neighbour atom, index of its offset, the offsets (K, 3))
+    of the occupied sites within the ideal radius r + 2 tol of each centre, or
+    None (too many offsets)."""
     found = _sorted_offsets(sites, r, half=False)
     if found is None:
         return None
@@ -219,16 +233,17 @@ def _neighbours(sites: GridSites, centres: np.ndarray, r: float, max_pairs: floa
         raise PairLimitError(pairs, r, int(max_pairs), "a pair list holds")
     axes = np.unravel_index(sites.flat[centres], tuple(sites.grid))
     shifted = np.empty(len(centres), dtype=np.int64)
-    slots, partners, shifts = [], [], []
+    slots, partners, counts = [], [], []
     for o in offsets.tolist():
         j = sites.atom_at[_shifted_sites(sites.grid, axes, o, out=shifted)]
         has = np.flatnonzero(j >= 0)
         slots.append(has)
         partners.append(j[has])
-        shifts.append(np.broadcast_to(np.asarray(o, np.float64), (has.size, 3)))
+        counts.append(has.size)
     if not slots:
-        return np.zeros(0, np.int64), np.zeros(0, np.int64), np.zeros((0, 3))
-    return np.concatenate(slots), np.concatenate(partners), np.concatenate(shifts)
+        return np.zeros(0, np.int64), np.zeros(0, np.int64), np.zeros(0, np.int64), offsets
+    return (np.concatenate(slots), np.concatenate(partners),
+            np.repeat(np.arange(len(offsets)), counts), offsets)
 
 
 def _occupied_count(sites: GridSites, centres: np.ndarray, offsets: np.ndarray) -> int:
