@@ -477,6 +477,8 @@ def _cif_short_row(loops: list[_CifLoop]) -> int | None:
     return table.body_line + body.count("\n")
 
 
+#: A count in a formula sum: empty (1), a whole or a decimal number.
+_COUNT = re.compile(r"|[0-9]+\.?[0-9]*|\.[0-9]+")
 _FORMULA_SUM = re.compile(r"_chemical_formula_sum\s+['\"]?([^'\"\n]+)")
 
 
@@ -489,7 +491,11 @@ def _cif_formula_sum(text: str) -> dict[str, float] | None:
     if not match:
         return None
     pairs = re.findall(r"([A-Z][a-z]?)\s*([0-9.]*)", match.group(1))
-    return {el: float(n or 1) for el, n in pairs} or None
+    if not all(_COUNT.fullmatch(n) for _, n in pairs):
+        return None  # a count that is no number ('Cr.'): the sum cannot be checked
+    declared = {el: float(n or 1) for el, n in pairs}
+    # a zero count ('Cr0') is no formula either: nothing to be a multiple of
+    return declared if declared and min(declared.values()) > 0 else None
 
 
 def _whole_multiple(counts: dict[str, int], declared: dict[str, float]) -> bool:

@@ -45,6 +45,7 @@ All lengths are in Angstrom, volumes in Angstrom^3, densities in g/cm^3.
 from __future__ import annotations
 
 import math
+from concurrent.futures import ThreadPoolExecutor
 
 import numpy as np
 
@@ -153,6 +154,13 @@ def _bulk_view(structure, slab, file, cutoff, expect, workers) -> dict:
 
 def _analyse(structure, file, cutoff, expect, potential_cutoff, workers, source,
              partial_occupancy):
+    with ThreadPoolExecutor(max_workers=1) as pool:
+        return _analysis(structure, file, cutoff, expect, potential_cutoff, workers, source,
+                         partial_occupancy, pool if workers > 1 else None)
+
+
+def _analysis(structure, file, cutoff, expect, potential_cutoff, workers, source,
+              partial_occupancy, pool):
     cell, positions = structure.cell, structure.positions
     volume, n = structure.volume, structure.n_atoms
     spacing = (volume / n) ** (1.0 / 3.0)
@@ -161,6 +169,9 @@ def _analyse(structure, file, cutoff, expect, potential_cutoff, workers, source,
     sites = neighbours.locate_grid(cell, positions, GRID_TOL)
     # every neighbour search below shares its cell lists and fractional coordinates
     near = neighbours.Neighbourhood(cell, positions, sites)
+    # the space group needs nothing found below: on the second core (``pool``),
+    # while the pairs are analysed (the same answer either way)
+    symmetry = pool.submit(lambda: space_group(structure, frac=near.frac)) if pool else None
     distribution = _pair_distribution(structure, spacing, workers, near)
     shells, boundaries = find_shells(distribution, spacing)
     threshold, threshold_source = _distance_threshold(shells)
@@ -201,7 +212,8 @@ def _analyse(structure, file, cutoff, expect, potential_cutoff, workers, source,
     radii = ([r * match.nearest for r in patterns()[match.name].distances[:SRO_SHELLS + 1]]
              if match else None)
     result["short_range_order"] = order_of_file(structure, prototype, radii, near=near)
-    result["space_group"], note = space_group(structure, frac=near.frac)
+    result["space_group"], note = (symmetry.result() if symmetry
+                                   else space_group(structure, frac=near.frac))
     if note:
         result["space_group_note"] = note
     typical = typical_spacing(structure, distribution, workers, near=near)

@@ -25,6 +25,8 @@ from .errors import InputError
 from .fixed_columns import loadtxt_fixed
 from .structure import Structure
 
+#: Largest atom type whose presence is counted in one bincount (else np.unique).
+_COUNTED_TYPES = 1 << 16
 #: Largest difference (u) between a LAMMPS mass and a standard atomic weight
 #: for the mass to name the element. Written masses carry 3-6 digits; the
 #: closest distinct standard weights that are not already ambiguous differ by
@@ -327,9 +329,12 @@ def fast_lammps(path: Path, head: LammpsHeader, types, data: bytes | None = None
     positions = rows[:, 2:5].copy()
     if images:  # image flags: unwrap as ASE does
         positions += np.einsum("ij,jk->ik", rows[:, 5:8], cell)
-    used = np.unique(type_of)
-    if used[0] < 1:
-        raise InputError(f"has atom type {used[0]}; LAMMPS types start at 1", file=str(path))
+    low, high = int(type_of.min()), int(type_of.max())
+    if low < 1:
+        raise InputError(f"has atom type {low}; LAMMPS types start at 1", file=str(path))
+    # the types present, ascending (counted when few, as types are)
+    used = (np.flatnonzero(np.bincount(type_of, minlength=high + 1)) if high <= _COUNTED_TYPES
+            else np.unique(type_of))
     symbols = type_symbols(path, head, types, used)
     unique = tuple(dict.fromkeys(symbols[int(t)] for t in used))
     code_of_type = np.zeros(int(used.max()) + 1, dtype=np.int32)

@@ -207,6 +207,26 @@ def test_ordered_cif_passes_site_occupancy(tmp_path):
     assert {c["name"]: c["passed"] for c in result["checks"]}["site_occupancy"] is True
 
 
+@pytest.mark.parametrize("formula, refused", [("Cu4", False), ("Cu5", True), ("Cu.", False),
+                                               ("Cu4.", False), ("Cu..4", False),
+                                               ("Cu4 Ni0", False)])
+def test_cif_formula_sum_is_checked_only_when_it_is_a_formula(tmp_path, formula, refused):
+    """A declared _chemical_formula_sum that is not a whole multiple of the atoms
+    read is a sign of a cut table (bad input); one whose counts are no numbers
+    ('Cu.') or zero ('Ni0'), both found by the damaged-files property test,
+    cannot be checked and is left aside, never a crash (common practice: the
+    CIF dictionary's formula sum gives positive counts)."""
+    path = write(cu(), tmp_path / "cu.cif", "cif")  # 108 atoms: 27 x Cu4, no whole x Cu5
+    lines = [line for line in path.read_text().splitlines()
+             if not line.startswith("_chemical_formula_sum")]
+    at = next(k for k, line in enumerate(lines) if line.startswith("data_")) + 1
+    lines.insert(at, f"_chemical_formula_sum '{formula}'")
+    path.write_text("\n".join(lines) + "\n")
+    code, output, _ = inspect_cli(path)
+    assert code == (2 if refused else 0), output
+    assert "Traceback" not in output and ("_chemical_formula_sum" in output) == refused
+
+
 def test_poscar_with_two_species_and_one_count_is_refused(tmp_path):
     path = write(cu(), tmp_path / "POSCAR", "vasp")
     lines = path.read_text().splitlines()
