@@ -107,6 +107,38 @@ def grid_pairs_of(sites: GridSites, centres: np.ndarray, r: float, max_pairs: fl
     return i[order], j[order], d[order]
 
 
+def grid_pair_chunks(sites: GridSites, centres: np.ndarray, r: float):
+    """The pairs of :func:`grid_pairs_of` one grid offset at a time, for callers that
+    only count them (no pair list in memory, no grouping), or None (too many
+    offsets): an iterator of ``(i, j, distance)``, i a centre's atom index, each
+    neighbour (atom or image) closer than ``r`` once, distances as
+    :func:`grid_pairs_of` gives them."""
+    found = _sorted_offsets(sites, r, half=False)
+    return None if found is None else _offset_chunks(sites, centres, r, found[0])
+
+
+def _offset_chunks(sites: GridSites, centres: np.ndarray, r: float, offsets: np.ndarray):
+    exact = sites.worst <= EXACT_SITES
+    lengths = _offset_distances(sites, centres[:0], centres[:0], offsets,
+                                np.arange(len(offsets))) if exact else None
+    axes = np.unravel_index(sites.flat[centres], tuple(sites.grid))
+    shifted = np.empty(len(centres), dtype=np.int64)
+    for k, o in enumerate(offsets.tolist()):
+        if exact and not lengths[k] < r:
+            continue
+        j = sites.atom_at[_shifted_sites(sites.grid, axes, o, out=shifted)]
+        has = np.flatnonzero(j >= 0)
+        if not has.size:
+            continue
+        i, j = centres[has], j[has]
+        if exact:
+            yield i, j, np.full(has.size, lengths[k])
+            continue
+        d = _offset_distances(sites, i, j, offsets, np.full(has.size, k))
+        keep = d < r
+        yield i[keep], j[keep], d[keep]
+
+
 def grid_nearest(sites: GridSites, centres: np.ndarray, r: float
                  ) -> tuple[np.ndarray, np.ndarray] | None:
     """:func:`cellbuild.neighbours.nearest_neighbours` on the grid, or None.

@@ -64,7 +64,8 @@ from .cellgeom import (_checked_cell, _checked_positions, _checked_radius, _thre
 from .neighbour_grid import (MAX_GRID_OFFSETS, MAX_GRID_SITES, GridSites,
                              _count_occupied_offsets, _grid_min_distance,
                              _grid_offsets, _grid_sites, locate_grid)
-from .grid_pairs import grid_close_pairs, grid_nearest, grid_pair_sample, grid_pairs_of
+from .grid_pairs import (grid_close_pairs, grid_nearest, grid_pair_chunks, grid_pair_sample,
+                         grid_pairs_of)
 from .neighbourhood import REUSE_FACTOR, Neighbourhood
 
 __all__ = ["GridSites", "MAX_COUNTED_PAIRS", "MAX_GRID_OFFSETS", "MAX_GRID_SITES",
@@ -248,6 +249,22 @@ def close_pairs(cell, positions, r, *, workers=2, limit=None, max_pairs=MAX_LIST
     i, j = np.minimum(i, j), np.maximum(i, j)
     rank = np.lexsort((j, i, d2))
     return i[rank], j[rank], np.sqrt(d2[rank])
+
+
+def pair_chunks(cell, positions, centres, r, *, near: Neighbourhood | None = None,
+                workers=2):
+    """The pairs of :func:`pairs_of` as an iterable of ``(i, j, distance)`` parts in
+    no particular order, for callers that count them: on a grid one offset at a
+    time (no pair list in memory, so no limit on their number), else one part
+    (PairLimitError beyond MAX_LISTED_PAIRS pairs, as :func:`pairs_of`)."""
+    cell = _checked_cell(cell)
+    positions = _checked_positions(positions)
+    centres = np.asarray(centres, dtype=np.int64)
+    sites = _sites_of(near, cell, positions) if len(positions) and len(centres) else None
+    chunks = None if sites is None else grid_pair_chunks(sites, centres, _checked_radius(r, "r"))
+    if chunks is not None:
+        return chunks
+    return [pairs_of(cell, positions, centres, r, near=near, workers=workers)]
 
 
 def pairs_of(cell, positions, centres, r, *, max_pairs=MAX_LISTED_PAIRS,

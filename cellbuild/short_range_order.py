@@ -170,7 +170,7 @@ def warren_cowley_of_file(structure, shell_radii: list[float], near=None,
     (:mod:`cellbuild.neighbourhood`), whose cell lists or grid the pair search uses.
     ``members``: (N,) bool, the atoms of one sublattice, when only they share the
     lattice (the others are left out of the pairs, as if absent)."""
-    from .neighbours import pairs_of
+    from .neighbours import pair_chunks
 
     m = len(structure.symbols)
     species = structure.species if members is None else structure.species[members]
@@ -186,15 +186,16 @@ def warren_cowley_of_file(structure, shell_radii: list[float], near=None,
         np.random.default_rng(0).choice(n, INSPECT_CENTRES, replace=False))
     if members is not None:  # the i-th member is atom flatnonzero(members)[i]
         centres = np.flatnonzero(members)[centres]
-    i, j, d = pairs_of(structure.cell, structure.positions, centres, float(edges[n_shells]),
-                       near=near)
-    shell = np.searchsorted(edges, d) - 1  # edges[k] <= d < edges[k + 1]: shell k
-    ok = (shell >= 0) & (shell < n_shells)
-    if members is not None:
-        ok &= members[j]
+    counts = np.zeros(n_shells * m * m, dtype=np.int64)
+    for i, j, d in pair_chunks(structure.cell, structure.positions, centres,
+                               float(edges[n_shells]), near=near):
+        shell = np.searchsorted(edges, d) - 1  # edges[k] <= d < edges[k + 1]: shell k
+        ok = (shell >= 0) & (shell < n_shells)
+        if members is not None:
+            ok &= members[j]
+        code = structure.species[i[ok]] * m + structure.species[j[ok]]
+        counts += np.bincount(shell[ok] * m * m + code, minlength=n_shells * m * m)
     conc = per / n
-    code = structure.species[i[ok]] * m + structure.species[j[ok]]
-    counts = np.bincount(shell[ok] * m * m + code, minlength=n_shells * m * m)
     counts = counts.reshape(n_shells, m, m)
     alphas = alpha_table(counts, structure.symbols, conc, present)
     return {"shells": [float(r) for r in radii[:n_shells]], "centres": int(len(centres)),

@@ -602,6 +602,27 @@ def test_grid_pair_queries_match_ase_and_the_cell_list(atoms):
         np.testing.assert_allclose(grid.distances, cells.distances, rtol=0, atol=1e-12)
 
 
+@pytest.mark.parametrize("atoms", on_grid_cases())
+def test_pair_chunks_are_the_pairs_of_ase_neighbour_list(atoms):
+    """pair_chunks (one grid offset at a time, or one part from the cell list)
+    give, taken together, ASE's pairs of the centres (reference: ASE's
+    neighbor_list), on the sites and 1e-7 A off them."""
+    from cellbuild.neighbours import Neighbourhood, pair_chunks
+
+    cell, positions = cell_and_positions(atoms)
+    near = Neighbourhood(cell, positions, locate_grid(cell, positions))
+    r = 1.3 * {ELEMENT[k]: A[k] for k in A}[atoms.get_chemical_symbols()[0]]
+    ai, aj, ad = neighbor_list("ijd", atoms, r)
+    centres = np.array([len(atoms) - 1, 0, 5, 2])
+    want = sorted((a, b, round(x, 9)) for a, b, x in zip(ai, aj, ad) if a in centres)
+    for where in (near, None):  # the grid's offsets, the cell list's one part
+        parts = list(pair_chunks(cell, positions, centres, r, near=where))
+        assert (len(parts) > 1) == (where is not None)
+        found = sorted((a, b, round(x, 9)) for i, j, d in parts
+                       for a, b, x in zip(i.tolist(), j.tolist(), d.tolist()))
+        assert found == want
+
+
 def test_grid_pair_sample_refuses_like_the_cell_list():
     from cellbuild.neighbours import Neighbourhood, PairLimitError, pair_sample, pairs_of
 
