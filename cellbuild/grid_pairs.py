@@ -119,8 +119,7 @@ def grid_pair_chunks(sites: GridSites, centres: np.ndarray, r: float):
 
 def _offset_chunks(sites: GridSites, centres: np.ndarray, r: float, offsets: np.ndarray):
     exact = sites.worst <= EXACT_SITES
-    lengths = _offset_distances(sites, centres[:0], centres[:0], offsets,
-                                np.arange(len(offsets))) if exact else None
+    lengths = _offset_lengths(sites, offsets) if exact else None
     axes = np.unravel_index(sites.flat[centres], tuple(sites.grid))
     shifted = np.empty(len(centres), dtype=np.int64)
     for k, o in enumerate(offsets.tolist()):
@@ -247,9 +246,15 @@ def _offset_distances(sites: GridSites, i: np.ndarray, j: np.ndarray, offsets: n
     """:func:`_actual_distances` for pairs at grid offsets ``offsets[which]``: on
     exact sites each offset's length once, gathered per pair."""
     if sites.worst <= EXACT_SITES:
-        vector = _times(offsets.astype(np.float64), sites.cell / sites.grid[:, None])
-        return np.sqrt(np.einsum("ij,ij->i", vector, vector))[which]
+        return _offset_lengths(sites, offsets)[which]
     return _actual_distances(sites, i, j, offsets[which])
+
+
+def _offset_lengths(sites: GridSites, offsets: np.ndarray) -> np.ndarray:
+    """(K,) length (A) of each grid offset, as :func:`_actual_distances` gives an
+    exact site's distance."""
+    vector = _times(offsets.astype(np.float64), sites.cell / sites.grid[:, None])
+    return np.sqrt(np.einsum("ij,ij->i", vector, vector))
 
 
 def _neighbours(sites: GridSites, centres: np.ndarray, r: float, max_pairs: float):

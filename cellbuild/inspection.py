@@ -154,9 +154,12 @@ def _bulk_view(structure, slab, file, cutoff, expect, workers) -> dict:
 
 def _analyse(structure, file, cutoff, expect, potential_cutoff, workers, source,
              partial_occupancy):
+    if workers <= 1:
+        return _analysis(structure, file, cutoff, expect, potential_cutoff, workers, source,
+                         partial_occupancy, None)
     with ThreadPoolExecutor(max_workers=1) as pool:
         return _analysis(structure, file, cutoff, expect, potential_cutoff, workers, source,
-                         partial_occupancy, pool if workers > 1 else None)
+                         partial_occupancy, pool)
 
 
 def _analysis(structure, file, cutoff, expect, potential_cutoff, workers, source,
