@@ -46,10 +46,17 @@ def expected_coordination(structure: Structure, crystal: Crystal,
     """Per-atom neighbour count implied by which grid sites are occupied.
 
     Uses array shifts of the occupancy grid: cost linear in the number of cells
-    times the number of neighbour offsets; no per-atom Python loop.
+    times the number of neighbour offsets; no per-atom Python loop. Small
+    supercells gather each atom's neighbour sites from a table kept per
+    (crystal, repeat) instead: the same counts without a padded grid per site.
     """
     n_grid = crystal.n_grid
     shape = (*repeat, n_grid)
+    table = _neighbour_sites(crystal, tuple(repeat))
+    if table is not None and (structure.n_atoms == 0 or int(structure.site.min()) >= 0):
+        occupied = np.zeros(math.prod(shape) + 1, dtype=np.uint8)  # last: the padding slot
+        occupied[structure.site] = 1
+        return occupied[table[structure.site]].sum(axis=1, dtype=np.int32)
     occupied = np.zeros(math.prod(shape), dtype=np.uint8)
     occupied[structure.site] = 1
     occupied = occupied.reshape(shape)
@@ -72,6 +79,33 @@ def expected_coordination(structure: Structure, crystal: Crystal,
                 total += padded[t][a:a + n1, b:b + n2, c:c + n3]
             expected[..., s] = total
     return expected.reshape(-1)[structure.site].astype(np.int32)
+
+
+#: Grid sites x offsets up to which :func:`expected_coordination` gathers from a
+#: neighbour table (2 MB of int64) instead of shifting the occupancy grid.
+_TABLE_ENTRIES = 1 << 18
+
+
+@lru_cache(maxsize=16)
+def _neighbour_sites(crystal: Crystal, repeat: tuple[int, int, int]) -> np.ndarray | None:
+    """(grid sites, K) flat ids of each site's audit neighbours (the crystal's
+    offset table), padded with the id one past the last site; read-only. None
+    when the table would exceed :data:`_TABLE_ENTRIES` entries. Kept per
+    process: a library of one size asks again for every structure."""
+    from .crystal import supercell_bonds
+
+    n_grid, n_sites = crystal.n_grid, math.prod(repeat) * crystal.n_grid
+    per_site = [[o for o in crystal.offsets if o[0] == s] for s in range(n_grid)]
+    width = max((len(p) for p in per_site), default=0)
+    if n_sites * width > _TABLE_ENTRIES:
+        return None
+    table = np.full((math.prod(repeat), n_grid, width), n_sites, dtype=np.int64)
+    for s, bonds in enumerate(per_site):
+        if bonds:
+            table[:, s, :len(bonds)] = supercell_bonds(repeat, n_grid, bonds)[1]
+    table = table.reshape(n_sites, width)
+    table.flags.writeable = False
+    return table
 
 
 def counts_within(structure: Structure, crystal: Crystal, *, workers: int = 2,

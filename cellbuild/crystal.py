@@ -267,3 +267,23 @@ def neighbour_offsets(cell: np.ndarray, frac: np.ndarray, cutoffs: np.ndarray):
         ci, t = np.nonzero((d < cutoffs[s]) & (d > 1e-9 * cutoffs[s]))
         entries += [(s, tuple(int(x) for x in cells[c]), int(u)) for c, u in zip(ci, t)]
     return tuple(entries)
+
+
+def supercell_bonds(repeat: tuple[int, int, int], n_grid: int,
+                    bonds) -> tuple[np.ndarray, np.ndarray]:
+    """Both ends of every bond ``(s, (di, dj, dk), t)`` (entries of an offset
+    table) in every cell of a ``repeat`` supercell, as flat grid-site ids
+    ``cell * n_grid + site`` (C-order cells): ``(centre, partner)``, each
+    (cells, bonds) int64; the partner's cell is wrapped periodically."""
+    n_cells = math.prod(repeat)
+    cell = np.arange(n_cells, dtype=np.int64)
+    if not bonds:
+        empty = np.zeros((n_cells, 0), dtype=np.int64)
+        return empty, empty
+    s = np.array([b[0] for b in bonds], dtype=np.int64)
+    d = np.array([b[1] for b in bonds], dtype=np.int64).reshape(-1, 3)
+    t = np.array([b[2] for b in bonds], dtype=np.int64)
+    axes = np.unravel_index(cell, repeat)
+    shifted = [(axes[a][:, None] + d[None, :, a]) % repeat[a] for a in range(3)]
+    partner = np.ravel_multi_index(shifted, repeat) * n_grid + t[None, :]
+    return cell[:, None] * n_grid + s[None, :], partner

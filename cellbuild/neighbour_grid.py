@@ -4,7 +4,7 @@ adding shifted occupancy grids instead of searching pairs. Lengths in Angstrom."
 from __future__ import annotations
 
 from dataclasses import dataclass
-from functools import cached_property
+from functools import cached_property, lru_cache
 
 import numpy as np
 
@@ -243,9 +243,25 @@ def _grid_offsets(cell: np.ndarray, grid: np.ndarray, cutoff: float) -> np.ndarr
     The box of offsets searched is wide enough along each axis to cover the
     cutoff across the perpendicular width of one grid step; offsets longer
     than the cell wrap around it and stand for images. None if there would be
-    more than MAX_GRID_OFFSETS.
+    more than MAX_GRID_OFFSETS. The array is read-only: it is kept per process
+    for each (cell, grid, cutoff), since the audit asks twice per structure and
+    a library of structures of one size asks the same question every time.
     """
-    step = cell / grid[:, None]
+    cell = np.ascontiguousarray(cell, dtype=np.float64)
+    key = tuple(int(m) for m in np.asarray(grid).reshape(3))
+    return _offsets_within(cell.tobytes(), key, float(cutoff))
+
+
+#: (cell, grid, cutoff) questions whose offsets are kept; each holds at most
+#: MAX_GRID_OFFSETS x 3 int64 (1.5 MB)
+_OFFSET_CACHE = 32
+
+
+@lru_cache(maxsize=_OFFSET_CACHE)
+def _offsets_within(cell_bytes: bytes, grid: tuple[int, int, int],
+                    cutoff: float) -> np.ndarray | None:
+    cell = np.frombuffer(cell_bytes, dtype=np.float64).reshape(3, 3)
+    step = cell / np.array(grid, dtype=np.float64)[:, None]
     reach = np.floor(cutoff / perpendicular_widths(step)).astype(np.int64)
     if np.prod(2 * reach + 1, dtype=np.float64) > 8 * MAX_GRID_OFFSETS:
         return None
@@ -255,7 +271,10 @@ def _grid_offsets(cell: np.ndarray, grid: np.ndarray, cutoff: float) -> np.ndarr
     inside = np.einsum("ij,ij->i", vectors, vectors) < cutoff * cutoff
     inside &= np.any(box != 0, axis=1)
     offsets = box[inside]
-    return offsets if len(offsets) <= MAX_GRID_OFFSETS else None
+    if len(offsets) > MAX_GRID_OFFSETS:
+        return None
+    offsets.flags.writeable = False
+    return offsets
 
 
 def _count_occupied_offsets(occupancy: np.ndarray, grid: np.ndarray,

@@ -101,8 +101,8 @@ def warren_cowley(structure, crystal, repeat: tuple[int, int, int],
         conc = per / per.sum()
         distances, shells = sublattice_shells(crystal, label, n_shells)
         pair_counts = []
-        for offsets in shells:
-            half = _bond_counts(grid, offsets, k).reshape(k, k)
+        for offsets, ends in zip(shells, _shell_ends(crystal, label, n_shells, tuple(repeat))):
+            half = _bond_counts(grid, ends, offsets, k).reshape(k, k)
             pair_counts.append(half + half.T)
         pair_counts = np.array(pair_counts)
         alphas = alpha_table(pair_counts[:, :m, :m], structure.symbols, conc, present)
@@ -120,28 +120,51 @@ def warren_cowley(structure, crystal, repeat: tuple[int, int, int],
 _GATHER_BONDS = 1 << 16
 
 
-def _bond_counts(grid: np.ndarray, offsets, k: int) -> np.ndarray:
+def _bond_counts(grid: np.ndarray, ends, offsets, k: int) -> np.ndarray:
     """(k * k,) int64 counts of (centre code, partner code) over the bonds
     ``offsets`` of one shell, each bond once (its reverse offset would give the
-    transposed counts); ``grid`` is (R1, R2, R3, sites per cell) of codes < k."""
-    bonds = [(s, d, t) for s, d, t in offsets if not (t, tuple(-x for x in d), s) < (s, d, t)]
-    repeat = grid.shape[:3]
-    n_cells = math.prod(repeat)
-    if n_cells * len(bonds) <= _GATHER_BONDS:
+    transposed counts); ``grid`` is (R1, R2, R3, sites per cell) of codes < k.
+    ``ends``: the bonds' flat (centre, partner) site ids from :func:`_shell_ends`,
+    or None for a grid too large to gather in one pass."""
+    if ends is not None:
         flat = grid.reshape(-1)
-        cell = np.arange(n_cells)
-        axes = np.unravel_index(cell, repeat)
-        s, d, t = (np.array(x) for x in zip(*bonds)) if bonds else (np.zeros(0, int),) * 3
-        # the partner of bond b in cell (i, j, k): cell (i, j, k) + d_b, site t_b
-        shifted = [(axes[a][:, None] + d[None, :, a]) % repeat[a] for a in range(3)]
-        partner = np.ravel_multi_index(shifted, repeat) * grid.shape[3] + t[None, :]
-        centre = cell[:, None] * grid.shape[3] + s[None, :]
+        centre, partner = ends
         return np.bincount((flat[centre] * k + flat[partner]).ravel(), minlength=k * k)
     counts = np.zeros(k * k, dtype=np.int64)
-    for s, (di, dj, dk), t in bonds:  # large grids: a shifted copy per offset streams
+    for s, (di, dj, dk), t in _one_way(offsets):  # large grids: a shifted copy per offset streams
         partner = np.roll(grid[..., t], (-di, -dj, -dk), axis=(0, 1, 2))
         counts += np.bincount((grid[..., s] * k + partner).ravel(), minlength=k * k)
     return counts
+
+
+def _one_way(offsets) -> list:
+    """The bonds of a shell each once: of an offset and its reverse, the smaller."""
+    return [(s, d, t) for s, d, t in offsets if not (t, tuple(-x for x in d), s) < (s, d, t)]
+
+
+#: Supercells whose shell ends are kept per process (a library of one size asks
+#: again for every structure); each entry is at most 2 x _GATHER_BONDS int64 per shell.
+_ENDS_CACHE = 16
+
+
+@lru_cache(maxsize=_ENDS_CACHE)
+def _shell_ends(crystal, label: str, n_shells: int, repeat: tuple[int, int, int]) -> tuple:
+    """Per shell of sublattice ``label``: the (centre, partner) flat site ids of
+    its bonds (each once) in every cell, read-only, or None where bonds x cells
+    exceed :data:`_GATHER_BONDS`."""
+    from .crystal import supercell_bonds
+
+    out = []
+    for offsets in sublattice_shells(crystal, label, n_shells)[1]:
+        bonds = _one_way(offsets)
+        if math.prod(repeat) * len(bonds) > _GATHER_BONDS:
+            out.append(None)
+            continue
+        ends = supercell_bonds(repeat, crystal.n_grid, bonds)
+        for array in ends:
+            array.flags.writeable = False
+        out.append(ends)
+    return tuple(out)
 
 
 def _vacancy_order(pair_counts, on_sites, symbols) -> dict:

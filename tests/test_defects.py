@@ -110,6 +110,33 @@ def _host_distances(b):
     return np.sort(d.ravel())
 
 
+@pytest.mark.parametrize("gather", [True, False], ids=["table", "shifts"])
+@pytest.mark.parametrize("lattice,site", [("fcc", "octahedral"), ("bcc", "tetrahedral"),
+                                          ("diamond", "tetrahedral")])
+def test_expected_coordination_by_table_and_by_shifts_match_ase(lattice, site, gather,
+                                                                  monkeypatch):
+    """Both routes of the topology count (a neighbour table gathered for small
+    supercells, shifted occupancy grids for large ones) give, around vacancies,
+    substitutions and interstitials, what ASE's neighbour list counts within the
+    audit cutoff (reference library)."""
+    from cellbuild import audit
+
+    audit._neighbour_sites.cache_clear()
+    if not gather:
+        monkeypatch.setattr(audit, "_TABLE_ENTRIES", 0)
+    try:
+        b = _built(lattice=lattice, a=5.43 if lattice == "diamond" else 3.615, repeat=(3, 4, 2),
+                   vacancies={"count": 3}, substitutions=[{"element": "Ni", "count": 4}],
+                   interstitials=[{"element": "C", "site": site, "count": 2}])
+        crystal = b.plan.crystal
+        assert (audit._neighbour_sites(crystal, (3, 4, 2)) is not None) == gather
+        counts = _ase_counts(b.structure, crystal.audit_cutoff)
+        np.testing.assert_array_equal(
+            audit.expected_coordination(b.structure, crystal, (3, 4, 2)), counts)
+    finally:
+        audit._neighbour_sites.cache_clear()
+
+
 def test_octahedral_interstitial_geometry_fcc():
     # geometry (common practice): an octahedral site in fcc is a/2 from 6 host atoms
     a = 3.615

@@ -150,5 +150,12 @@ def test_one_pass_per_shell_counts_the_same_bonds_as_a_shift_per_offset(crystal,
     args = (b.structure, b.plan.crystal, b.plan.repeat)
     gathered = short_range_order.warren_cowley(*args)
     monkeypatch.setattr(short_range_order, "_GATHER_BONDS", 0)
-    assert short_range_order.warren_cowley(*args) == gathered
+    short_range_order._shell_ends.cache_clear()  # the ends kept for the gathered pass
+    try:
+        label = b.plan.crystal.sublattice[0]
+        assert all(e is None for e in short_range_order._shell_ends(
+            b.plan.crystal, label, short_range_order.SHELLS, tuple(b.plan.repeat)))
+        assert short_range_order.warren_cowley(*args) == gathered
+    finally:
+        short_range_order._shell_ends.cache_clear()
     assert gathered is not None

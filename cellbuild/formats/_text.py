@@ -392,6 +392,19 @@ def _read_only(array: np.ndarray) -> np.ndarray:
     return array
 
 
+def row_layout(fields: Sequence[Field], indent: int = 0) -> Row:
+    """The :class:`Row` of these fields, built once per process for each layout
+    (a library of small files would otherwise rebuild the same row, its base
+    words and its tables, for every file). A Row is never changed after it is
+    built, so the cached one is shared."""
+    return _cached_row(tuple(fields), indent)
+
+
+@lru_cache(maxsize=_TABLE_CACHE)
+def _cached_row(fields: tuple[Field, ...], indent: int) -> Row:
+    return Row(fields, indent)
+
+
 def _pad_slot(fields: Sequence[Field]) -> int:
     """Which gap takes the padding: before the first right-aligned field."""
     for i, f in enumerate(fields):

@@ -56,7 +56,7 @@ def write(structure: Structure, handle, title: str, options=None) -> None:
     symbols = structure.symbols
     fraction = _text.Fixed(1, FRACTION_DECIMALS, signed=False)
     label = _text.Int(len(str(int(counts.max()))), prefixes=symbols)  # Cu1, Cu2, ...
-    row = _text.Row([label, _text.Text(symbols), fraction, fraction, fraction,
+    row = _text.row_layout([label, _text.Text(symbols), fraction, fraction, fraction,
                      _text.Const("1")])
     inverse = _text.inverse3(structure.cell)
     seen = np.zeros(len(symbols), dtype=np.int64)  # atoms of each species so far

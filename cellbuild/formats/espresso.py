@@ -69,7 +69,7 @@ def write(structure: Structure, handle, title: str, options=None) -> None:
     number = _text.Fixed(_text.int_digits_for(top, DECIMALS), DECIMALS)
     free = options.free if options is not None else None
     flags = [_text.Text(("0 0 0", "1 1 1"))] if free is not None else []  # pw.x's if_pos
-    row = _text.Row([_text.Text(structure.symbols), number, number, number, *flags])
+    row = _text.row_layout([_text.Text(structure.symbols), number, number, number, *flags])
 
     def columns(part: slice):
         xyz = values[part]

@@ -71,7 +71,7 @@ def write(structure: Structure, handle, title: str, options=None) -> None:
     if charges is not None:
         top = float(np.max(np.abs(charges))) if charges.size else 0.0
         charge = [_text.Fixed(_text.int_digits_for(top, CHARGE_DECIMALS), CHARGE_DECIMALS)]
-    row = _text.Row([_text.Int(len(str(structure.n_atoms))), types, *charge,
+    row = _text.row_layout([_text.Int(len(str(structure.n_atoms))), types, *charge,
                      coordinate, coordinate, coordinate])
     inverse = _text.inverse3(cell)
     same_frame = np.array_equal(box, cell)

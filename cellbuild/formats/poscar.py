@@ -39,7 +39,7 @@ def write(structure: Structure, handle, title: str, options=None) -> None:
     inverse = _text.inverse3(structure.cell)
     fraction = _text.Fixed(1, FRACTION_DECIMALS, signed=False)
     flags = [_text.Text(("F F F", "T T T"))] if free is not None else []
-    row = _text.Row([fraction, fraction, fraction, *flags], indent=1)
+    row = _text.row_layout([fraction, fraction, fraction, *flags], indent=1)
 
     def columns(part: slice):
         rows = part if order is None else order[part]

@@ -40,7 +40,7 @@ def write(structure: Structure, handle, title: str, options=None) -> None:
         charge = [_text.Fixed(_text.int_digits_for(top, DECIMALS), DECIMALS)]
     free = options.free if options is not None else None
     flags = [_text.Text(("F", "T"))] if free is not None else []
-    row = _text.Row([_text.Text(structure.symbols), coordinate, coordinate, coordinate,
+    row = _text.row_layout([_text.Text(structure.symbols), coordinate, coordinate, coordinate,
                      *charge, *flags])
 
     def columns(part: slice):
