@@ -216,7 +216,8 @@ def build_library(source_dir: str | os.PathLike, out: str | os.PathLike, *,
     ``sync`` says when the files are flushed to the disk (:data:`SYNC_CHOICES`):
     ``"file"`` each file before it takes its name; ``"end"`` all of them once,
     after the last structure and before the manifest (which vouches for them)
-    is written. Either way each file appears whole; they differ only after a
+    is written (one ``syncfs`` per file system on Linux, see
+    :func:`cellbuild.fileio.flush_file_systems`). Either way each file appears whole; they differ only after a
     power cut or a crash of the machine, where ``end`` may leave files written
     since the start empty, with no new manifest listing them.
 
@@ -268,9 +269,9 @@ def build_library(source_dir: str | os.PathLike, out: str | os.PathLike, *,
     manifest = make_manifest(outcomes, source=_relative(source_dir, out))
     removed = remove_stale(out, previous, manifest)
     if sync == "end":  # before the manifest that vouches for them
-        from .fileio import sync_files
+        from .fileio import flush_file_systems
 
-        sync_files(out / path for path in sorted(listed_paths(manifest)))
+        flush_file_systems(out / path for path in sorted(listed_paths(manifest)))
     write_manifest(manifest_path, manifest)
     return BatchResult(outcomes, manifest, manifest_path, removed, temporaries, lost,
                        executor.description, executor.kind)

@@ -18,8 +18,9 @@ Durability is the caller's choice (``sync``):
 - ``sync=False``: the rename still makes each file appear whole to readers
   (atomicity does not depend on ``fsync``), but the bytes may still sit in the
   page cache; a power cut (not a killed process) can then leave a new name
-  with empty or partial content. A caller writing many files (a batch) calls
-  :func:`sync_files` once at the end, with every file it wrote, before it
+  with empty or partial content. A caller writing many files (a batch) flushes
+  them once at the end (:func:`flush_file_systems`: one ``syncfs`` per file
+  system, or :func:`sync_files`: one ``fsync`` per file and folder) before it
   writes the record that vouches for them (the manifest, itself written with
   ``sync=True``): a manifest on disk then implies its files are on disk too.
 """
@@ -28,6 +29,7 @@ from __future__ import annotations
 import contextlib
 import os
 import re
+import sys
 import tempfile
 from pathlib import Path
 from typing import BinaryIO, Iterable, Iterator
@@ -113,6 +115,63 @@ def sync_files(paths: Iterable[str | os.PathLike], *, folders: bool = True) -> i
         for folder in parents:
             _sync_folder(folder)
     return flushed
+
+
+def flush_file_systems(paths: Iterable[str | os.PathLike]) -> int:
+    """Flush written files to the disk with one ``syncfs(2)`` per file system
+    that holds them (Linux), instead of one ``fsync`` per file and folder.
+
+    ``syncfs`` writes out every dirty page, inode and folder entry of that file
+    system, ours among them, in one journal commit: for a library of thousands of
+    small files it costs a few milliseconds where a flush per file cost about
+    0.5 ms of CPU per structure (measured on the development machine's ext4).
+    It also writes out other programs' pending data on the same file system.
+    Where ``syncfs`` is missing (not Linux, no C library) or refused, the files
+    fall back to :func:`sync_files`. Returns the number of file systems flushed
+    (0 after a fallback). Raises :class:`OSError` if the kernel reports a write
+    error (Linux 5.8 and later report writeback errors through ``syncfs``).
+    """
+    paths = list(paths)
+    syncfs = _syncfs()
+    if syncfs is None:
+        sync_files(paths)
+        return 0
+    devices: dict[int, str] = {}
+    for folder in dict.fromkeys(os.path.dirname(os.path.abspath(p)) for p in paths):
+        try:
+            devices.setdefault(os.stat(folder).st_dev, folder)
+        except FileNotFoundError:
+            continue  # removed meanwhile, with its files
+    for folder in devices.values():
+        fd = os.open(folder, os.O_RDONLY | getattr(os, "O_DIRECTORY", 0))
+        try:
+            if syncfs(fd) != 0:
+                import ctypes
+                import errno
+
+                code = ctypes.get_errno()
+                if code in (errno.ENOSYS, errno.EINVAL, errno.ENOTSUP):  # refused: flush per file
+                    sync_files(paths)
+                    return 0
+                raise OSError(code, os.strerror(code), folder)
+        finally:
+            os.close(fd)
+    return len(devices)
+
+
+def _syncfs():
+    """The C library's ``syncfs`` as a ctypes function, or None where there is none."""
+    if not sys.platform.startswith("linux"):
+        return None
+    try:
+        import ctypes
+
+        function = ctypes.CDLL(None, use_errno=True).syncfs
+    except (OSError, AttributeError):
+        return None
+    function.argtypes = [ctypes.c_int]
+    function.restype = ctypes.c_int
+    return function
 
 
 def _sync_folder(folder: str) -> None:

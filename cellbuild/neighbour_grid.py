@@ -159,8 +159,11 @@ def _find_grid_sites(cell: np.ndarray, frac: np.ndarray, tol: float):
     Any grid that holds all atoms holds the sample too, so a sample that fits
     no grid rules the whole set out.
     """
-    sample = frac[np.random.default_rng(0).integers(0, len(frac), _GRID_SAMPLE)]
-    for atoms in (sample, frac):
+    if len(frac) <= _GRID_SAMPLE:  # a draw of this many would only repeat atoms
+        tries = (frac,)
+    else:
+        tries = (frac[np.random.default_rng(0).integers(0, len(frac), _GRID_SAMPLE)], frac)
+    for atoms in tries:
         grid = _detect_grid(cell, atoms, tol)
         if grid is None or np.prod(grid, dtype=np.float64) > MAX_GRID_SITES_PER_ATOM * len(frac):
             return None

@@ -139,6 +139,12 @@ def defected_spacegroup(crystal, repeat, structure, n_vacancies: int) -> tuple[s
     identity = np.all(rot == np.eye(3, dtype=np.int64), axis=(1, 2))
     if np.count_nonzero(identity) != 1:
         return None  # a shorter translation: the symmetry may not keep the supercell
+    # Origin on the first changed site: the type of a set of operations does not
+    # depend on the origin, and so written, the same defect anywhere in the
+    # supercell gives the same operations (a library of them asks spglib once).
+    cell_ijk, basis_id = _cell_of(changed[:1], n_basis, repeat)
+    origin = cell_ijk[0] + np.asarray(crystal.basis, dtype=np.float64)[basis_id[0]]
+    trans = trans + np.einsum("gij,j->gi", rot, origin) - origin
     return _space_group_type(rot, trans, repeat, structure.cell)
 
 
@@ -209,16 +215,31 @@ def _cell_of(flat: np.ndarray, n_basis: int, repeat: np.ndarray):
 def _space_group_type(rot: np.ndarray, trans: np.ndarray, repeat: np.ndarray,
                       cell: np.ndarray) -> tuple[str, int] | None:
     """spglib's space-group type of operations (R, t) given in the crystal's cell,
-    rewritten in the supercell's basis: diag(1/N) R diag(N), t / N."""
+    rewritten in the supercell's basis: diag(1/N) R diag(N), t / N (translations
+    rounded to 1e-12 and wrapped into [0, 1), so equal sets give equal keys)."""
+    r_super = (rot * repeat[None, None, :] // repeat[None, :, None]).astype(np.intc)
+    t_super = np.round((trans / repeat[None, :]) % 1.0, 12) % 1.0
+    return _type_of_operations(r_super.tobytes(), t_super.tobytes(),
+                               np.asarray(cell, dtype=np.float64).tobytes())
+
+
+#: Sets of operations whose space-group type is kept per process.
+_TYPE_CACHE = 256
+
+
+@lru_cache(maxsize=_TYPE_CACHE)
+def _type_of_operations(rotations: bytes, translations: bytes,
+                        cell: bytes) -> tuple[str, int] | None:
+    """spglib's (short symbol, number) for operations given as the bytes of
+    (g, 3, 3) intc rotations and (g, 3) float64 translations in a (3, 3) cell."""
     import spglib
 
-    r_super = rot * repeat[None, None, :] // repeat[None, :, None]
-    t_super = (trans / repeat[None, :]) % 1.0
+    rot = np.frombuffer(rotations, dtype=np.intc).reshape(-1, 3, 3)
     with warnings.catch_warnings():
         warnings.simplefilter("ignore", DeprecationWarning)
         found = spglib.get_spacegroup_type_from_symmetry(
-            r_super.astype(np.intc), t_super, lattice=np.asarray(cell, dtype=np.float64),
-            symprec=SYMPREC)
+            rot, np.frombuffer(translations, dtype=np.float64).reshape(-1, 3),
+            lattice=np.frombuffer(cell, dtype=np.float64).reshape(3, 3), symprec=SYMPREC)
     if found is None:
         return None
     return str(found.international_short), int(found.number)

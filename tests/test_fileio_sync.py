@@ -4,7 +4,9 @@ The expectations are POSIX semantics and common practice: fsync(2) flushes a
 file's bytes, a rename is durable once its folder is fsynced (fsync(2) man
 page, "calling fsync() does not necessarily ensure that the entry in the
 directory containing the file has also reached disk"), and atomicity of
-rename(2) does not depend on fsync (readers see old or new bytes either way).
+rename(2) does not depend on fsync (readers see old or new bytes either way);
+syncfs(2) (Linux man page) flushes the whole file system holding a descriptor's
+file and, since Linux 5.8, reports writeback errors.
 """
 from __future__ import annotations
 
@@ -151,3 +153,50 @@ def test_a_link_swapped_in_after_writing_is_still_refused_at_commit(tmp_path):
             (root / "sub").symlink_to(outside)
             staged.commit()
     assert list(outside.iterdir()) == []
+
+
+def test_flush_file_systems_syncs_each_file_system_once(tmp_path, fsyncs, monkeypatch):
+    (tmp_path / "x").mkdir()
+    (tmp_path / "y").mkdir()
+    written = _write_set(tmp_path / "x", sync=False) + _write_set(tmp_path / "y", sync=False)
+    real = fileio._syncfs()
+    if real is None:
+        pytest.skip("no syncfs here (not Linux)")
+    flushed = []
+    monkeypatch.setattr(fileio, "_syncfs", lambda: lambda fd: flushed.append(
+        os.fstat(fd).st_dev) or real(fd))
+    fsyncs.clear()
+    assert fileio.flush_file_systems(written) == 1
+    assert flushed == [os.stat(tmp_path).st_dev] and fsyncs == []  # one flush, no fsync
+
+
+def test_flush_file_systems_without_syncfs_flushes_each_file(tmp_path, fsyncs, monkeypatch):
+    written = _write_set(tmp_path, sync=False)
+    monkeypatch.setattr(fileio, "_syncfs", lambda: None)
+    fsyncs.clear()
+    assert fileio.flush_file_systems(written) == 0
+    assert sorted(p for is_dir, p in fsyncs if not is_dir) == sorted(
+        os.path.realpath(p) for p in written)
+    assert [p for is_dir, p in fsyncs if is_dir] == [os.path.realpath(tmp_path)]
+
+
+@pytest.mark.parametrize("code,falls_back", [(errno.EIO, False), (errno.ENOSYS, True)])
+def test_flush_file_systems_reports_a_write_error_and_falls_back_when_refused(
+        tmp_path, fsyncs, monkeypatch, code, falls_back):
+    import ctypes
+
+    written = _write_set(tmp_path, sync=False)
+
+    def failing(fd):
+        ctypes.set_errno(code)
+        return -1
+
+    monkeypatch.setattr(fileio, "_syncfs", lambda: failing)
+    fsyncs.clear()
+    if falls_back:
+        assert fileio.flush_file_systems(written) == 0
+        assert len([p for is_dir, p in fsyncs if not is_dir]) == len(written)
+    else:
+        with pytest.raises(OSError) as err:
+            fileio.flush_file_systems(written)
+        assert err.value.errno == errno.EIO

@@ -24,6 +24,7 @@ right-aligned with the minus sign directly before the first digit.
 """
 from __future__ import annotations
 
+import math
 from concurrent.futures import ThreadPoolExecutor
 from dataclasses import dataclass
 from functools import lru_cache
@@ -74,7 +75,7 @@ def chunks(n: int, size: int | None = None) -> Iterator[slice]:
 # --------------------------------------------------------------------------
 
 def fixed_point(values: np.ndarray, decimals: int) -> tuple[np.ndarray, np.ndarray]:
-    """Round ``values`` to ``decimals`` places exactly as ``'%.<d>f'`` does.
+    """Round ``values`` (1-D) to ``decimals`` places exactly as ``'%.<d>f'`` does.
 
     Returns ``(magnitude, negative)``: ``magnitude`` is ``|x| * 10**d`` rounded
     to an int64 (correctly, from the exact binary value, ties to even) and
@@ -140,22 +141,31 @@ def _product_error(a: np.ndarray, b: float, p: np.ndarray) -> np.ndarray:
 
 
 def format_fixed(values, decimals: int) -> list[str]:
-    """Floats as ``'%.<d>f'`` strings without ``-0``: for the few header numbers."""
-    flat = np.atleast_1d(np.asarray(values, dtype=np.float64)).ravel()
-    magnitude, negative = fixed_point(flat, decimals)
+    """Floats as ``'%.<d>f'`` strings without ``-0``: for the few header numbers.
+
+    Python's own formatting, which rounds the exact binary value as
+    :func:`fixed_point` does; the same ValueError for nan, inf and values of
+    ``10**(18 - d)`` and more."""
     text = []
-    for m, neg in zip(magnitude.tolist(), negative.tolist()):
-        whole, part = divmod(m, 10 ** decimals)
-        digits = f"{whole}.{part:0{decimals}d}" if decimals else f"{whole}"
-        text.append("-" + digits if neg else digits)
+    for x in np.atleast_1d(np.asarray(values, dtype=np.float64)).ravel().tolist():
+        digits = "%.*f" % (decimals, _formattable(x, decimals))
+        text.append(digits[1:] if digits[0] == "-" and not digits.strip("-0.") else digits)
     return text
+
+
+def _formattable(x: float, decimals: int) -> float:
+    """``x``, or the ValueError :func:`fixed_point` raises for it."""
+    if not math.isfinite(x):
+        raise ValueError("cannot format non-finite values (nan or inf)")
+    if abs(x) >= 10.0 ** (_MAX_DIGITS - decimals):
+        raise ValueError(f"{abs(x):g} is too large to format with {decimals} decimals")
+    return x
 
 
 def int_digits_for(max_abs: float, decimals: int) -> int:
     """Integer digits that magnitudes up to ``max_abs`` need at ``decimals``
     places, including a carry from rounding (9.99999999999 -> 10.0000000000)."""
-    magnitude, _ = fixed_point(np.array([max_abs]), decimals)
-    return len(str(int(magnitude[0]) // 10 ** decimals))
+    return len(("%.*f" % (decimals, abs(_formattable(float(max_abs), decimals)))).split(".")[0])
 
 
 def wrap_unit(frac: np.ndarray, decimals: int) -> np.ndarray:
@@ -268,6 +278,11 @@ class Row:
         self._texts = {i: _text_pieces(Text(tuple(f.labels), f.right))
                        for i, f in enumerate(self.fields)
                        if isinstance(f, Text)}
+        by_decimals: dict[int, list[int]] = {}
+        for i, f in enumerate(self.fields):
+            if isinstance(f, Fixed):
+                by_decimals.setdefault(f.decimals, []).append(i)
+        self._fixed_groups = tuple((d, tuple(group)) for d, group in by_decimals.items())
 
     def _base_words(self) -> np.ndarray:
         """The bytes common to every line (spaces, points, constants, newline)
@@ -291,10 +306,11 @@ class Row:
     def render(self, columns: Sequence) -> np.ndarray:
         """The (rows, width) uint8 text of one block, one column per field."""
         words = _Words(self._base)
+        rounded = self._rounded(columns)
         n = 0
         for i, (f, s, col) in enumerate(zip(self.fields, self.starts, columns)):
             if isinstance(f, Fixed):
-                n = self._fixed(words, i, f, s, col)
+                n = self._fixed(words, i, f, s, rounded[i])
             elif isinstance(f, Int):
                 n = self._int(words, i, f, s, col)
             elif isinstance(f, Text):
@@ -306,8 +322,23 @@ class Row:
             matrix[:, j] = words.column(j)
         return matrix.view(np.uint8).reshape(n, self.width)
 
-    def _fixed(self, words: "_Words", i: int, f: Fixed, start: int, values) -> int:
-        magnitude, negative = fixed_point(values, f.decimals)
+    def _rounded(self, columns: Sequence) -> dict:
+        """``fixed_point`` of every Fixed field's column by field index: one call
+        for all the fields with the same decimals (x, y and z together), whose
+        fixed cost per call is most of a small file's formatting."""
+        out = {}
+        for decimals, group in self._fixed_groups:
+            if len(group) == 1:
+                out[group[0]] = fixed_point(columns[group[0]], decimals)
+                continue
+            stacked = np.stack([np.asarray(columns[i], dtype=np.float64) for i in group])
+            magnitude, negative = fixed_point(stacked.reshape(-1), decimals)
+            out.update(zip(group, zip(magnitude.reshape(len(group), -1),
+                                      negative.reshape(len(group), -1))))
+        return out
+
+    def _fixed(self, words: "_Words", i: int, f: Fixed, start: int, rounded) -> int:
+        magnitude, negative = rounded
         scale = 10 ** f.decimals
         whole = magnitude // scale
         _check_fits(whole, f.int_digits)
