@@ -9,7 +9,7 @@ from __future__ import annotations
 import hashlib
 import json
 import os
-from dataclasses import dataclass
+from dataclasses import dataclass, field
 from functools import lru_cache
 from pathlib import Path
 from typing import Callable
@@ -56,6 +56,8 @@ class Result:
     report: dict
     outputs: dict[str, WrittenFile]
     report_path: Path
+    #: the other files written, by kind (``report``, ``defects``, ``lammps_groups``)
+    sidecars: dict[str, WrittenFile] = field(default_factory=dict)
 
     @property
     def passed(self) -> bool:
@@ -172,7 +174,8 @@ def make(recipe: Recipe, out_dir: str | os.PathLike, *, force: bool = False,
         # formatted and written in a second thread while the audit runs (numpy
         # releases the GIL in both). A failed audit leaves the with-block after
         # the writer has finished, so the rollback removes everything it staged.
-        writer = _Background(_write_files, built, out_dir, staged, options, note,
+        sidecars: dict[str, WrittenFile] = {}
+        writer = _Background(_write_files, built, out_dir, staged, options, note, sidecars,
                              run_here=built.structure.n_atoms < _BACKGROUND_WRITE_ATOMS)
         with writer:
             note("audit")
@@ -180,9 +183,15 @@ def make(recipe: Recipe, out_dir: str | os.PathLike, *, force: bool = False,
             outputs = writer.result()
         report = make_report(built, result_audit, outputs, out_dir,
                              recipe_sha256 or recipe_hash(recipe))
-        staged.write_bytes(report_path, _json_bytes(report))
+        sidecars["report"] = _stage_bytes(staged, report_path, _json_bytes(report))
         staged.commit()
-    return Result(built, result_audit, report, outputs, report_path)
+    return Result(built, result_audit, report, outputs, report_path, sidecars)
+
+
+def _stage_bytes(staged: StagedFiles, path: Path, data: bytes) -> WrittenFile:
+    """Stage ``data`` as ``path``; its hash and size, from the bytes in hand."""
+    staged.write_bytes(path, data)
+    return WrittenFile(path, hashlib.sha256(data).hexdigest(), len(data))
 
 
 #: Atoms from which :func:`make` writes the structure files in a second thread
@@ -211,9 +220,10 @@ def _audited(built: Built, workers: int) -> Audit:
 
 
 def _write_files(built: Built, out_dir, staged: StagedFiles, options: WriteOptions,
-                 note: Progress) -> dict[str, WrittenFile]:
+                 note: Progress, sidecars: dict[str, WrittenFile]) -> dict[str, WrittenFile]:
     """Stage every file of ``built`` that does not depend on the audit: the
-    structure files, the LAMMPS groups and ``NAME.defects.json``."""
+    structure files (returned by format key), the LAMMPS groups and
+    ``NAME.defects.json`` (added to ``sidecars``)."""
     recipe = built.plan.recipe
     outputs = {}
     for key in recipe.outputs:
@@ -222,11 +232,13 @@ def _write_files(built: Built, out_dir, staged: StagedFiles, options: WriteOptio
                                        output_path(out_dir, recipe.name, key),
                                        title=recipe.name, staged=staged, options=options)
     if _writes_groups(recipe):
-        staged.write_bytes(Path(out_dir) / f"{recipe.name}{GROUPS_EXTENSION}",
-                           groups_text(built.free).encode("ascii"))
+        sidecars["lammps_groups"] = _stage_bytes(
+            staged, Path(out_dir) / f"{recipe.name}{GROUPS_EXTENSION}",
+            groups_text(built.free).encode("ascii"))
     if built.placements:
-        staged.write_bytes(Path(out_dir) / f"{recipe.name}.defects.json",
-                           _json_bytes(defect_sites(built), indent=None))
+        sidecars["defects"] = _stage_bytes(
+            staged, Path(out_dir) / f"{recipe.name}.defects.json",
+            _json_bytes(defect_sites(built), indent=None))
     return outputs
 
 

@@ -55,7 +55,6 @@ def default_workers() -> int:
 
 def build_job(job: Job) -> Outcome:
     """Build, audit and write one structure (runs in a worker process)."""
-    from .fileio import sha256_file
     from .pipeline import make
 
     start = time.perf_counter()
@@ -78,14 +77,11 @@ def build_job(job: Job) -> Outcome:
     outputs = {key: {"path": prefix + Path(info["path"]).as_posix(), "sha256": info["sha256"],
                      "bytes": info["bytes"]}
                for key, info in report["outputs"].items()}
-    extra = {"report": result.report_path}
-    if report.get("defect_sites"):
-        extra["defects"] = Path(job.out_dir) / report["defect_sites"]
-    if (report.get("relax") or {}).get("lammps_groups"):
-        extra["lammps_groups"] = Path(job.out_dir) / report["relax"]["lammps_groups"]
-    for key, path in extra.items():
-        outputs[key] = {"path": prefix + path.name, "sha256": sha256_file(path),
-                        "bytes": path.stat().st_size}
+    for key in ("report", "defects", "lammps_groups"):
+        if key in result.sidecars:
+            written = result.sidecars[key]
+            outputs[key] = {"path": prefix + written.path.name, "sha256": written.sha256,
+                            "bytes": written.bytes}
     failed = tuple({"name": c["name"], "detail": c["detail"]}
                    for c in report["checks"] if not c["passed"])
     return Outcome(name=job.name, source=job.source, recipe_sha256=job.recipe_sha256,

@@ -202,3 +202,24 @@ def test_example_report_is_what_the_demo_recipe_builds(cli, tmp_path):
     for report in (built, shipped):
         report.pop("versions")
     assert built == shipped
+
+
+def test_written_files_hashes_are_those_of_the_bytes_on_disk(tmp_path):
+    """The sha256 and size make returns for every file (the manifest's entries) are
+    those hashlib computes from the file as written (reference: hashlib)."""
+    import hashlib
+
+    from cellbuild.pipeline import make
+    from cellbuild.recipe import parse_recipe
+
+    data = recipe_dict("Cu", "fcc", 3.615, (2, 2, 2), seed=4,
+                       defects={"vacancies": {"count": 1}})
+    data["relax"] = {"within": 3.0}
+    result = make(parse_recipe(data), tmp_path / "out")
+    assert set(result.sidecars) == {"report", "defects", "lammps_groups"}
+    written = [*result.outputs.values(), *result.sidecars.values()]
+    for info in written:
+        raw = info.path.read_bytes()
+        assert (info.sha256, info.bytes) == (hashlib.sha256(raw).hexdigest(), len(raw))
+    assert sorted(p.name for p in (tmp_path / "out").iterdir()) == sorted(
+        info.path.name for info in written)
