@@ -187,18 +187,19 @@ def _analysis(structure, file, cutoff, expect, potential_cutoff, workers, source
                                             locate=False)
     first = first_shell(distribution.distances, shells, boundaries)
     match, match_info = match_lattice(counts, shells, first, distribution, volume, n)
+    per_species = structure.counts()  # O(N): once for every fact below that needs it
     prototype, prototype_note = match_prototype(structure, pattern=match.name if match else None,
-                                                near=near)
+                                                near=near, counts=per_species)
 
     crowded_r = CROWDED_FRACTION * match.nearest if match else 0.0
     pi, pj, pd = _pairs_below(structure, max(threshold, crowded_r), float(cd[0]), workers, near)
 
     result = {"file": file, **(source or {})}
-    result.update(_cell_facts(structure))
+    result.update(_cell_facts(structure, per_species))
     result.update(_distance_facts(ci, cj, cd, pi, pj, pd, threshold))
     result["net_charge"] = structure.net_charge()  # atoms' charges (e), if the file has them
     result["shells"] = shells
-    result["coordination"] = _coordination_facts(structure, counts, cut, cut_source)
+    result["coordination"] = _coordination_facts(structure, counts, cut, cut_source, per_species)
     result["lattice"] = prototype["name"] if prototype else match.name if match else None
     result["prototype"] = prototype
     if prototype_note:
@@ -355,7 +356,8 @@ def _distance_threshold(shells: list[dict]) -> tuple[float, str]:
 # ----------------------------------------------------------------------------- facts and checks
 
 
-def _cell_facts(structure: Structure) -> dict:
+def _cell_facts(structure: Structure, per_species: np.ndarray) -> dict:
+    """Cell, composition and density (``per_species``: atoms per species code)."""
     cell = structure.cell
     lengths = np.linalg.norm(cell, axis=1)
 
@@ -365,20 +367,22 @@ def _cell_facts(structure: Structure) -> dict:
 
     return {
         "n_atoms": structure.n_atoms,
-        "composition": structure.composition(),
+        "composition": {s: int(c) for s, c in zip(structure.symbols, per_species) if c > 0},
         "cell": cell.tolist(),
         "cell_lengths": lengths.tolist(),
         "cell_angles": [angle(1, 2), angle(0, 2), angle(0, 1)],  # alpha, beta, gamma
         "volume": structure.volume,
         "perpendicular_widths": neighbours.perpendicular_widths(cell).tolist(),
-        "density": density(structure),
+        "density": density(structure, per_species),
     }
 
 
-def density(structure: Structure) -> float:
-    """Mass density in g/cm^3 from standard atomic weights and the cell volume."""
+def density(structure: Structure, counts: np.ndarray | None = None) -> float:
+    """Mass density in g/cm^3 from standard atomic weights and the cell volume
+    (``counts``: the structure's atoms per species code, if known)."""
     weights = np.array([standard_atomic_weight(s) for s in structure.symbols])
-    return float(structure.counts() @ weights) / (
+    counts = structure.counts() if counts is None else counts
+    return float(counts @ weights) / (
         AVOGADRO * structure.volume * ANGSTROM3_TO_CM3)
 
 
@@ -399,8 +403,8 @@ def _distance_facts(ci, cj, cd, pi, pj, pd, threshold: float) -> dict:
 
 
 def _coordination_facts(structure: Structure, counts: np.ndarray, cutoff: float,
-                        source: str) -> dict:
-    present = np.flatnonzero(structure.counts())
+                        source: str, per_species: np.ndarray) -> dict:
+    present = np.flatnonzero(per_species)
     return {
         "cutoff": cutoff,
         "cutoff_source": source,

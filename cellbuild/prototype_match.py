@@ -141,10 +141,11 @@ class _Sample:
     n_atoms: int
 
 
-def _sample(structure, reach: float, near=None) -> _Sample:
+def _sample(structure, reach: float, near=None, per_code=None) -> _Sample:
     """Neighbours closer than ``reach`` mean spacings of up to SAMPLE_PER_ELEMENT
-    seeded centres per element (``near``: the structure's Neighbourhood)."""
-    per_code = structure.counts()
+    seeded centres per element (``near``: the structure's Neighbourhood;
+    ``per_code``: its :meth:`~cellbuild.structure.Structure.counts`, if known)."""
+    per_code = structure.counts() if per_code is None else per_code
     present = np.flatnonzero(per_code)
     element_of = np.full(len(structure.symbols), -1, dtype=np.int64)
     element_of[present] = np.arange(len(present))
@@ -290,7 +291,7 @@ def _describe(best: dict, sample: _Sample, pattern: str | None) -> dict:
             "score": best["score"], "misfit": best["parts"], "sublattices": sublattices}
 
 
-def match_prototype(structure, *, pattern: str | None = None, near=None
+def match_prototype(structure, *, pattern: str | None = None, near=None, counts=None
                     ) -> tuple[dict | None, str | None]:
     """The compound prototype ``structure`` (a :class:`~cellbuild.structure.Structure`)
     is, as a JSON-ready dict (see the module docstring), or None with a sentence
@@ -304,19 +305,20 @@ def match_prototype(structure, *, pattern: str | None = None, near=None
     sublattice (:func:`element_groups`: a high-entropy oxide's cations); a
     mixed sublattice's ``species`` then joins its elements with ``+`` and
     ``occupants`` gives its atoms per element. ``near``: the structure's
-    :class:`~cellbuild.neighbourhood.Neighbourhood`, whose cell lists the sample uses.
+    :class:`~cellbuild.neighbourhood.Neighbourhood`, whose cell lists the sample uses;
+    ``counts``: the structure's atoms per species code, when the caller has them.
     """
-    if int(np.count_nonzero(structure.counts())) < 2:
+    counts = structure.counts() if counts is None else counts  # O(N): once, handed down
+    if int(np.count_nonzero(counts)) < 2:
         return None, None
     # one neighbour search serves the match and the grouping of the same atoms
-    sample = _sample(structure, _reach(), near)
+    sample = _sample(structure, _reach(), near, counts)
     found, why = _match(structure, pattern, sample)
     if found is not None:
         return found, why
-    mixed = _mixed_match(structure, pattern, sample, near)
+    mixed = _mixed_match(structure, pattern, sample, near, counts)
     if mixed is not None:
         return mixed, None
-    counts = structure.counts()
     minor = np.flatnonzero((counts > 0) & (counts < MINOR_FRACTION * structure.n_atoms))
     if minor.size == 0 or np.count_nonzero(counts) - minor.size < 2:
         return found, why
@@ -368,10 +370,11 @@ def element_groups(structure, sample: _Sample | None = None) -> list[list[str]]:
 
 
 def _mixed_match(structure, pattern: str | None, sample: _Sample | None = None,
-                 near=None) -> dict | None:
+                 near=None, counts=None) -> dict | None:
     """The prototype of ``structure`` with each group of :func:`element_groups`
     taken as one species, or None when no group holds two elements or none fits.
-    ``near``: the structure's Neighbourhood (the grouped atoms are the same atoms)."""
+    ``near``: the structure's Neighbourhood (the grouped atoms are the same atoms);
+    ``counts``: its atoms per species code, if known."""
     from .structure import Structure
 
     groups = element_groups(structure, sample)
@@ -382,10 +385,12 @@ def _mixed_match(structure, pattern: str | None, sample: _Sample | None = None,
         group_of[[structure.symbols.index(e) for e in g]] = k
     grouped = Structure(structure.cell, structure.positions, group_of[structure.species],
                         tuple(g[0] for g in groups))
-    found, _ = _match(grouped, pattern, near=near)
+    counts = structure.counts() if counts is None else counts
+    found, _ = _match(grouped, pattern, near=near,
+                      counts=np.bincount(group_of, weights=counts,
+                                         minlength=len(groups)).astype(np.int64))
     if found is None:
         return None
-    counts = structure.counts()
     by_first = {g[0]: g for g in groups}
     found["occupants"] = {label: {e: int(counts[structure.symbols.index(e)])
                                   for e in by_first[first]}
@@ -394,18 +399,23 @@ def _mixed_match(structure, pattern: str | None, sample: _Sample | None = None,
     return found
 
 
-def _match(structure, pattern: str | None, sample: _Sample | None = None, near=None
-           ) -> tuple[dict | None, str | None]:
+def _match(structure, pattern: str | None, sample: _Sample | None = None, near=None,
+           counts=None) -> tuple[dict | None, str | None]:
     """Best prototype of ``structure`` (``sample``: its neighbour sample, if drawn;
-    ``near``: its Neighbourhood)."""
-    present = int(np.count_nonzero(structure.counts()))
+    ``near``: its Neighbourhood; ``counts``: its atoms per species code, if known)."""
+    if sample is not None:
+        counts = None  # the sample's elements are those present
+        present = len(sample.elements)
+    else:
+        counts = structure.counts() if counts is None else counts
+        present = int(np.count_nonzero(counts))
     if present < 2:
         return None, None
     refs = [r for r in references() if len(r.sublattices) >= present]
     if not refs:
         return None, f"no prototype has {present} sublattices"
     if sample is None:
-        sample = _sample(structure, _reach(), near)
+        sample = _sample(structure, _reach(), near, counts)
     candidates = []
     for ref in refs:
         for mapping in product(range(present), repeat=len(ref.sublattices)):
