@@ -26,7 +26,7 @@ from pathlib import Path
 
 import numpy as np
 
-from cellbuild.formats import FORMATS, _text, write_structure
+from cellbuild.formats import FORMATS, _rounding, _text, write_structure
 from cellbuild.structure import Structure
 
 FCC = np.array([[0, 0, 0], [0, .5, .5], [.5, 0, .5], [.5, .5, 0]])
@@ -105,7 +105,7 @@ def print_table(rows: list[dict]) -> None:
 
 def rows_words(xyz: np.ndarray, lookup: bool = True) -> bytes:
     """The chosen method: uint64 words from table lookups (cellbuild.formats._text)."""
-    field = _text.Fixed(_text.int_digits_for(np.abs(xyz).max(), 10), 10)
+    field = _text.Fixed(_rounding.int_digits_for(np.abs(xyz).max(), 10), 10)
     row = _text.Row([field] * 3, lookup=lookup)
     return b"".join(row.render([xyz[p, 0], xyz[p, 1], xyz[p, 2]]).tobytes()
                     for p in _text.chunks(len(xyz)))
@@ -115,7 +115,7 @@ def rows_byte_columns(xyz: np.ndarray) -> bytes:
     """Alternative: float rounding rint(|x| * 1e10), then one digit at a time by
     divmod into the byte columns of a (rows, width) matrix."""
     blocks = []
-    k = _text.int_digits_for(np.abs(xyz).max(), 10)
+    k = _rounding.int_digits_for(np.abs(xyz).max(), 10)
     width = 1 + k + 11
     for part in _text.chunks(len(xyz)):
         block = xyz[part]

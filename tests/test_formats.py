@@ -19,7 +19,7 @@ import pytest
 from hypothesis import given, settings
 from hypothesis import strategies as st
 
-from cellbuild.formats import FORMATS, _text, write_structure
+from cellbuild.formats import FORMATS, _rounding, _text, write_structure
 from cellbuild.formats import lammps as lammps_format
 from cellbuild.structure import Structure
 
@@ -304,7 +304,7 @@ def python_fixed(x: float, decimals: int) -> str:
 
 def rendered(values, decimals: int, signed: bool = True) -> list[str]:
     values = np.asarray(values, dtype=float)
-    digits = _text.int_digits_for(np.abs(values).max(), decimals)
+    digits = _rounding.int_digits_for(np.abs(values).max(), decimals)
     row = _text.Row([_text.Fixed(digits, decimals, signed)])
     matrix = row.render([values])
     assert matrix.shape[1] % 8 == 0
@@ -329,7 +329,7 @@ def hard_values(decimals: int, rng) -> np.ndarray:
 def test_fixed_fields_match_python_formatting(decimals):
     values = hard_values(decimals, np.random.default_rng(decimals))
     assert rendered(values, decimals) == [python_fixed(v, decimals) for v in values]
-    assert _text.format_fixed(values, decimals) == [python_fixed(v, decimals) for v in values]
+    assert _rounding.format_fixed(values, decimals) == [python_fixed(v, decimals) for v in values]
 
 
 def test_unsigned_fixed_fields_match_python_formatting():
@@ -373,7 +373,7 @@ def test_formatting_errors():
     with pytest.raises(ValueError):  # does not fit the field
         _text.Row([_text.Fixed(2, 10)]).render([np.array([123.0])])
     with pytest.raises(ValueError):  # beyond int64 fixed point
-        _text.fixed_point(np.array([1e9]), 10)
+        _rounding.fixed_point(np.array([1e9]), 10)
     with pytest.raises(ValueError):
         _text.Row([_text.Int(3)]).render([np.array([1000])])
 

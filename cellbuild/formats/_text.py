@@ -24,7 +24,6 @@ right-aligned with the minus sign directly before the first digit.
 """
 from __future__ import annotations
 
-import math
 from concurrent.futures import ThreadPoolExecutor
 from dataclasses import dataclass
 from functools import lru_cache
@@ -32,14 +31,13 @@ from typing import Callable, Iterator, Sequence, Union
 
 import numpy as np
 
+from ._rounding import fixed_point
+
 SPACE, MINUS, DOT, NEWLINE, ZERO = (ord(c) for c in " -.\n0")
 
 #: Rows per block: big enough that per-block Python overhead is negligible,
 #: small enough that the column temporaries (8 bytes x rows each) stay in cache.
 CHUNK_ROWS = 1 << 15
-
-#: Largest number of digits of an int64 fixed-point value (< 9.2e18).
-_MAX_DIGITS = 18
 
 _WORD = 8  # bytes per uint64 word
 
@@ -68,115 +66,6 @@ def chunks(n: int, size: int | None = None) -> Iterator[slice]:
     size = size or CHUNK_ROWS
     for start in range(0, n, size):
         yield slice(start, min(start + size, n))
-
-
-# --------------------------------------------------------------------------
-# Exact decimal rounding
-# --------------------------------------------------------------------------
-
-def fixed_point(values: np.ndarray, decimals: int) -> tuple[np.ndarray, np.ndarray]:
-    """Round ``values`` (1-D) to ``decimals`` places exactly as ``'%.<d>f'`` does.
-
-    Returns ``(magnitude, negative)``: ``magnitude`` is ``|x| * 10**d`` rounded
-    to an int64 (correctly, from the exact binary value, ties to even) and
-    ``negative`` marks values that are negative and do not round to zero.
-
-    Raises ValueError for nan/inf or magnitudes of ``10**(18 - d)`` and more.
-    """
-    values = np.asarray(values, dtype=np.float64)
-    a = np.abs(values)
-    top = float(a.max()) if a.size else 0.0
-    if not np.isfinite(top):
-        raise ValueError("cannot format non-finite values (nan or inf)")
-    if top >= 10.0 ** (_MAX_DIGITS - decimals):
-        raise ValueError(f"{top:g} is too large to format with {decimals} decimals")
-    scale = 10 ** decimals
-    # Rounding a*scale is exact where the product stays below 2**52: there
-    # float64 holds every half-integer, so rint sees the true distance to the
-    # nearest integers (up to the product's error, handled at exact ties).
-    # Larger magnitudes first split off their integer part (exact).
-    whole = None if top * scale < 2.0 ** 52 else np.floor(a)
-    part = a if whole is None else a - whole  # a - floor(a) is exact
-    scaled = part * float(scale)
-    near = np.rint(scaled)  # ties to even, as '%f' does for exact ties
-    _fix_half_ties(part, float(scale), scaled, near)
-    magnitude = near.astype(np.int64)
-    if whole is not None:
-        magnitude += whole.astype(np.int64) * scale
-    negative = np.signbit(values) & (magnitude != 0)
-    return magnitude, negative
-
-
-def _fix_half_ties(part: np.ndarray, scale: float, scaled: np.ndarray,
-                   near: np.ndarray) -> None:
-    """Correct ``near = rint(part * scale)`` in place where the float product is
-    a half-integer but the exact product is not.
-
-    ``scaled - near`` is exact; away from +-0.5 it decides the rounding alone,
-    because the product's rounding error is below half an ulp. Only at exactly
-    +-0.5 does that error (computed exactly with Dekker's product, on these
-    few values only) break the tie.
-    """
-    rest = scaled - near
-    at_half = np.flatnonzero(np.abs(rest) == 0.5)
-    if at_half.size == 0:
-        return
-    f, p, r = part[at_half], scaled[at_half], rest[at_half]
-    error = _product_error(f, scale, p)  # exact product = p + error
-    near[at_half] += np.where(error * r > 0, np.sign(r), 0.0)
-
-
-def _split(x):
-    """Veltkamp split: ``x = hi + lo`` with 26-bit halves, exact."""
-    c = 134217729.0 * x  # 2**27 + 1
-    hi = c - (c - x)
-    return hi, x - hi
-
-
-def _product_error(a: np.ndarray, b: float, p: np.ndarray) -> np.ndarray:
-    """Exact rounding error of ``p = fl(a * b)`` (Dekker's two-product)."""
-    a_hi, a_lo = _split(a)
-    b_hi, b_lo = _split(b)
-    return ((a_hi * b_hi - p) + a_hi * b_lo + a_lo * b_hi) + a_lo * b_lo
-
-
-def format_fixed(values, decimals: int) -> list[str]:
-    """Floats as ``'%.<d>f'`` strings without ``-0``: for the few header numbers.
-
-    Python's own formatting, which rounds the exact binary value as
-    :func:`fixed_point` does; the same ValueError for nan, inf and values of
-    ``10**(18 - d)`` and more."""
-    text = []
-    for x in np.atleast_1d(np.asarray(values, dtype=np.float64)).ravel().tolist():
-        digits = "%.*f" % (decimals, _formattable(x, decimals))
-        text.append(digits[1:] if digits[0] == "-" and not digits.strip("-0.") else digits)
-    return text
-
-
-def _formattable(x: float, decimals: int) -> float:
-    """``x``, or the ValueError :func:`fixed_point` raises for it."""
-    if not math.isfinite(x):
-        raise ValueError("cannot format non-finite values (nan or inf)")
-    if abs(x) >= 10.0 ** (_MAX_DIGITS - decimals):
-        raise ValueError(f"{abs(x):g} is too large to format with {decimals} decimals")
-    return x
-
-
-def int_digits_for(max_abs: float, decimals: int) -> int:
-    """Integer digits that magnitudes up to ``max_abs`` need at ``decimals``
-    places, including a carry from rounding (9.99999999999 -> 10.0000000000)."""
-    return len(("%.*f" % (decimals, abs(_formattable(float(max_abs), decimals)))).split(".")[0])
-
-
-def wrap_unit(frac: np.ndarray, decimals: int) -> np.ndarray:
-    """Fractional coordinates wrapped into [0, 1) so that none prints as 1.000...
-
-    Values within 0.6 units of the last printed decimal below 1 become 0: the
-    same point by periodicity, moved by less than the printed precision.
-    """
-    wrapped = frac - np.floor(frac)
-    wrapped[wrapped >= 1.0 - 0.6 * 10.0 ** -decimals] = 0.0
-    return wrapped
 
 
 # --------------------------------------------------------------------------
@@ -551,55 +440,6 @@ def digit_count(values: np.ndarray, max_digits: int) -> np.ndarray:
     for power in range(1, max_digits):
         count += values >= 10 ** power
     return count
-
-
-# --------------------------------------------------------------------------
-# Cell arithmetic with the same bits on every machine
-# --------------------------------------------------------------------------
-# BLAS/LAPACK kernels (matmul, inv, det, norm) differ between machines in
-# summation order and FMA use, which can move a last bit and so, rarely, a
-# printed digit. These use single IEEE operations in a fixed order instead.
-
-def dot3(u: Sequence[float], v: Sequence[float]) -> float:
-    """u . v of two 3-vectors, summed left to right."""
-    return float(u[0]) * float(v[0]) + float(u[1]) * float(v[1]) + float(u[2]) * float(v[2])
-
-
-def det3(m: np.ndarray) -> float:
-    """Determinant of a 3x3 matrix (triple product of its rows)."""
-    a, b, c = np.asarray(m, dtype=np.float64).tolist()
-    return dot3(a, cross3(b, c))
-
-
-def inverse3(m: np.ndarray) -> np.ndarray:
-    """Inverse of a 3x3 matrix from its adjugate; ValueError if singular."""
-    a, b, c = np.asarray(m, dtype=np.float64).tolist()
-    adjugate_columns = [cross3(b, c), cross3(c, a), cross3(a, b)]
-    det = dot3(a, adjugate_columns[0])
-    if det == 0.0:
-        raise ValueError("the cell is singular (zero volume)")
-    return np.array(adjugate_columns).T / det
-
-
-def cross3(u: Sequence[float], v: Sequence[float]) -> list[float]:
-    """u x v of two 3-vectors."""
-    return [u[1] * v[2] - u[2] * v[1], u[2] * v[0] - u[0] * v[2], u[0] * v[1] - u[1] * v[0]]
-
-
-def linear3(columns: Sequence[np.ndarray], matrix: np.ndarray) -> np.ndarray:
-    """``rows @ matrix`` for rows given as their three columns (x, y, z).
-
-    Returns the three result columns as a (3, n) array, each column
-    ``(x * m0j + y * m1j) + z * m2j`` in elementwise float64 operations.
-    """
-    m = np.asarray(matrix, dtype=np.float64).tolist()
-    x, y, z = columns
-    out = np.empty((3, len(x)))
-    for j in range(3):
-        np.multiply(x, m[0][j], out=out[j])
-        out[j] += y * m[1][j]
-        out[j] += z * m[2][j]
-    return out
 
 
 # --------------------------------------------------------------------------

@@ -32,8 +32,7 @@ import re
 import numpy as np
 
 from ..structure import Structure
-from . import _text
-
+from . import _cell3, _rounding, _text
 #: Decimals of fractional coordinates: 1e-12, below 1e-8 A up to 1e4 A cells.
 FRACTION_DECIMALS = 12
 #: Decimals of cell lengths (A).
@@ -58,14 +57,14 @@ def write(structure: Structure, handle, title: str, options=None) -> None:
     label = _text.Int(len(str(int(counts.max()))), prefixes=symbols)  # Cu1, Cu2, ...
     row = _text.row_layout([label, _text.Text(symbols), fraction, fraction, fraction,
                      _text.Const("1")])
-    inverse = _text.inverse3(structure.cell)
+    inverse = _cell3.inverse3(structure.cell)
     seen = np.zeros(len(symbols), dtype=np.int64)  # atoms of each species so far
 
     def columns(part: slice):
         species = structure.species[part]
         number = seen[species] + _rank_within(species, len(symbols)) + 1
         seen[:] += np.bincount(species, minlength=len(symbols))
-        x, y, z = _text.wrap_unit(_text.linear3(structure.positions[part].T, inverse),
+        x, y, z = _rounding.wrap_unit(_cell3.linear3(structure.positions[part].T, inverse),
                                   FRACTION_DECIMALS)
         return [(number, species), species, x, y, z, None]
 
@@ -88,12 +87,12 @@ def cell_parameters(cell: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
     near 0 and 180 degrees) and exactly 90 for orthogonal vectors.
     """
     rows = np.asarray(cell, dtype=np.float64).tolist()
-    lengths = [math.sqrt(_text.dot3(u, u)) for u in rows]
+    lengths = [math.sqrt(_cell3.dot3(u, u)) for u in rows]
     angles = []
     for i, j in [(1, 2), (0, 2), (0, 1)]:
-        normal = _text.cross3(rows[i], rows[j])
-        angles.append(math.degrees(math.atan2(math.sqrt(_text.dot3(normal, normal)),
-                                              _text.dot3(rows[i], rows[j]))))
+        normal = _cell3.cross3(rows[i], rows[j])
+        angles.append(math.degrees(math.atan2(math.sqrt(_cell3.dot3(normal, normal)),
+                                              _cell3.dot3(rows[i], rows[j]))))
     return np.array(lengths), np.array(angles)
 
 
@@ -105,9 +104,9 @@ def data_name(title: str) -> str:
 
 def _header(structure: Structure, title: str) -> str:
     lengths, angles = cell_parameters(structure.cell)
-    a, b, c = _text.format_fixed(lengths, CELL_DECIMALS)
-    alpha, beta, gamma = _text.format_fixed(angles, ANGLE_DECIMALS)
-    (volume,) = _text.format_fixed([abs(_text.det3(structure.cell))], 6)
+    a, b, c = _rounding.format_fixed(lengths, CELL_DECIMALS)
+    alpha, beta, gamma = _rounding.format_fixed(angles, ANGLE_DECIMALS)
+    (volume,) = _rounding.format_fixed([abs(_cell3.det3(structure.cell))], 6)
     formula = " ".join(f"{s}{n}" for s, n in structure.composition().items())
     return "\n".join([
         "#\\#CIF_1.1",  # the version line CIF 1.1 readers look for

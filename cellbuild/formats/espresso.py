@@ -43,8 +43,7 @@ import numpy as np
 
 from ..kpoints import mesh, shift
 from ..structure import Structure
-from . import _text
-
+from . import _rounding, _text
 #: Decimals of lengths in Angstrom and of fractional coordinates.
 DECIMALS = 10
 
@@ -66,7 +65,7 @@ def write(structure: Structure, handle, title: str, options=None) -> None:
     values = structure.positions @ np.linalg.inv(structure.cell) if crystal \
         else structure.positions
     top = max(float(values.max()), -float(values.min())) if values.size else 0.0
-    number = _text.Fixed(_text.int_digits_for(top, DECIMALS), DECIMALS)
+    number = _text.Fixed(_rounding.int_digits_for(top, DECIMALS), DECIMALS)
     free = options.free if options is not None else None
     flags = [_text.Text(("0 0 0", "1 1 1"))] if free is not None else []  # pw.x's if_pos
     row = _text.row_layout([_text.Text(structure.symbols), number, number, number, *flags])
@@ -88,7 +87,7 @@ def _header(structure: Structure, title: str, espresso, kpoints, present: list[s
 
     name = re.sub(r"[^A-Za-z0-9_.-]", "_", _text.one_line(title, "structure")) or "structure"
     cutoff = "" if espresso.ecutwfc is None else f"  ecutwfc = {espresso.ecutwfc!r}\n"
-    vectors = _text.format_fixed(structure.cell.ravel(), DECIMALS)
+    vectors = _rounding.format_fixed(structure.cell.ravel(), DECIMALS)
     width = max(len(x) for x in vectors)
     cell = "".join("  " + " ".join(x.rjust(width) for x in vectors[i:i + 3]) + "\n"
                    for i in (0, 3, 6))

@@ -42,8 +42,7 @@ import math
 import numpy as np
 
 from ..structure import Structure
-from . import _text
-
+from . import _cell3, _rounding, _text
 #: Decimals of Cartesian coordinates and box sizes in Angstrom: 1e-10 A
 #: resolution at any box size (up to 1e8 A, where int64 fixed point ends).
 DECIMALS = 10
@@ -64,16 +63,16 @@ def write(structure: Structure, handle, title: str, options=None) -> None:
     handle.write(_header(structure, box, title).encode("ascii"))
     # |coordinate| of a wrapped atom <= sum of |box components| along that axis
     bound = max(sum(abs(v) for v in axis) for axis in box.T.tolist())
-    coordinate = _text.Fixed(_text.int_digits_for(bound, DECIMALS), DECIMALS)
+    coordinate = _text.Fixed(_rounding.int_digits_for(bound, DECIMALS), DECIMALS)
     types = _text.Text(tuple(str(t + 1) for t in range(len(structure.symbols))), right=True)
     charges = structure.charges
     charge = []
     if charges is not None:
         top = float(np.max(np.abs(charges))) if charges.size else 0.0
-        charge = [_text.Fixed(_text.int_digits_for(top, CHARGE_DECIMALS), CHARGE_DECIMALS)]
+        charge = [_text.Fixed(_rounding.int_digits_for(top, CHARGE_DECIMALS), CHARGE_DECIMALS)]
     row = _text.row_layout([_text.Int(len(str(structure.n_atoms))), types, *charge,
                      coordinate, coordinate, coordinate])
-    inverse = _text.inverse3(cell)
+    inverse = _cell3.inverse3(cell)
     same_frame = np.array_equal(box, cell)
 
     def columns(part: slice):
@@ -87,7 +86,7 @@ def write(structure: Structure, handle, title: str, options=None) -> None:
 
 def right_handed(cell: np.ndarray) -> np.ndarray:
     """The cell, with ``c`` negated if the vectors are left-handed (same lattice)."""
-    if _text.det3(cell) < 0:
+    if _cell3.det3(cell) < 0:
         return cell * np.array([[1.0], [1.0], [-1.0]])
     return cell
 
@@ -128,7 +127,7 @@ def lammps_box(cell: np.ndarray) -> np.ndarray:
     if cell[0, 1] == cell[0, 2] == cell[1, 2] == 0.0 and np.all(np.diag(cell) > 0):
         return cell.copy()
     a, b, c = cell.tolist()
-    dot = _text.dot3
+    dot = _cell3.dot3
     lx = math.sqrt(dot(a, a))
     xy = dot(b, a) / lx
     ly = math.sqrt(dot(b, b) - xy * xy)
@@ -149,17 +148,17 @@ def wrap_into_box(positions: np.ndarray, cell: np.ndarray, inverse: np.ndarray,
     below the upper face (fractional 1 - 1e-15) goes to the lower face, so no
     coordinate prints as the upper box bound.
     """
-    frac = _text.linear3(positions.T, inverse)
+    frac = _cell3.linear3(positions.T, inverse)
     shift = np.floor(frac + _FACE)
     if same_frame:
         if not shift.any():
             return positions.T
-        return positions.T - _text.linear3(shift, cell)
-    return _text.linear3(frac - shift, box)
+        return positions.T - _cell3.linear3(shift, cell)
+    return _cell3.linear3(frac - shift, box)
 
 
 def _numbers(*values: float) -> str:
-    return " ".join(_text.format_fixed(values, DECIMALS))
+    return " ".join(_rounding.format_fixed(values, DECIMALS))
 
 
 def _header(structure: Structure, box: np.ndarray, title: str) -> str:

@@ -22,8 +22,7 @@ from __future__ import annotations
 import numpy as np
 
 from ..structure import Structure
-from . import _text
-
+from . import _cell3, _rounding, _text
 #: Decimals of fractional coordinates (see cif.FRACTION_DECIMALS).
 FRACTION_DECIMALS = 12
 #: Decimals of lattice vector components in Angstrom.
@@ -36,7 +35,7 @@ def write(structure: Structure, handle, title: str, options=None) -> None:
     free = options.free if options is not None else None
     handle.write(_header(structure, title, free is not None).encode("ascii"))
     order = _grouped_order(structure.species)
-    inverse = _text.inverse3(structure.cell)
+    inverse = _cell3.inverse3(structure.cell)
     fraction = _text.Fixed(1, FRACTION_DECIMALS, signed=False)
     flags = [_text.Text(("F F F", "T T T"))] if free is not None else []
     row = _text.row_layout([fraction, fraction, fraction, *flags], indent=1)
@@ -45,7 +44,7 @@ def write(structure: Structure, handle, title: str, options=None) -> None:
         rows = part if order is None else order[part]
         positions = structure.positions[rows]
         moves = [] if free is None else [free[rows].astype(np.int64)]
-        return [*_text.wrap_unit(_text.linear3(positions.T, inverse), FRACTION_DECIMALS), *moves]
+        return [*_rounding.wrap_unit(_cell3.linear3(positions.T, inverse), FRACTION_DECIMALS), *moves]
 
     _text.write_rows(handle, row, structure.n_atoms, columns)
 
@@ -60,7 +59,7 @@ def _grouped_order(species: np.ndarray) -> np.ndarray | None:
 def _header(structure: Structure, title: str, selective: bool = False) -> str:
     composition = structure.composition()
     default = "".join(f"{s}{n}" for s, n in composition.items()) or "structure"
-    vectors = _text.format_fixed(structure.cell.ravel(), CELL_DECIMALS)
+    vectors = _rounding.format_fixed(structure.cell.ravel(), CELL_DECIMALS)
     width = max(len(v) for v in vectors)
     lattice = ["  " + " ".join(v.rjust(width) for v in vectors[i:i + 3]) for i in (0, 3, 6)]
     return "\n".join([

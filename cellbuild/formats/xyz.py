@@ -18,8 +18,7 @@ import re
 import numpy as np
 
 from ..structure import Structure
-from . import _text
-
+from . import _rounding, _text
 #: Decimals of Cartesian values in Angstrom (see lammps.DECIMALS).
 DECIMALS = 10
 
@@ -32,12 +31,12 @@ def write(structure: Structure, handle, title: str, options=None) -> None:
     positions = structure.positions
     # max |x| from max and min: no N x 3 temporary for abs()
     top = max(float(positions.max()), -float(positions.min())) if positions.size else 0.0
-    coordinate = _text.Fixed(_text.int_digits_for(top, DECIMALS), DECIMALS)
+    coordinate = _text.Fixed(_rounding.int_digits_for(top, DECIMALS), DECIMALS)
     charges = structure.charges
     charge = []
     if charges is not None:
         top = float(np.max(np.abs(charges))) if charges.size else 0.0
-        charge = [_text.Fixed(_text.int_digits_for(top, DECIMALS), DECIMALS)]
+        charge = [_text.Fixed(_rounding.int_digits_for(top, DECIMALS), DECIMALS)]
     free = options.free if options is not None else None
     flags = [_text.Text(("F", "T"))] if free is not None else []
     row = _text.row_layout([_text.Text(structure.symbols), coordinate, coordinate, coordinate,
@@ -53,7 +52,7 @@ def write(structure: Structure, handle, title: str, options=None) -> None:
 
 
 def _header(structure: Structure, title: str, move_mask: bool = False) -> str:
-    lattice = " ".join(_text.format_fixed(structure.cell.ravel(), DECIMALS))
+    lattice = " ".join(_rounding.format_fixed(structure.cell.ravel(), DECIMALS))
     # Keep the title a plain quoted string for extended-XYZ parsers: no quotes
     # or backslashes inside.
     name = _text.one_line(title, "").replace('"', "'").replace("\\", "/")
