@@ -26,6 +26,12 @@ Target: at least 50 small structures per second per core.
 other work keeps busy, creating, renaming and flushing files costs kernel CPU
 time (measured: 2 to 3 s of system time per 500 small structures on this
 machine's shared ext4 disk, 0.4 s on tmpfs), which this separates from ours.
+Each repeat writes into a fresh output folder, and all of them are removed when
+the run ends. ``--churn`` removes each one before the next repeat instead, so a
+build follows thousands of deletions: on this machine's ext4 (no journal), the
+kernel's inode allocator then skips over recently freed inodes one by one
+(``find_inode_bit`` / ``recently_deleted`` in ``perf``), 1 to 2 ms of system
+time per small structure, growing with every repeat.
 ``--sync end`` passes ``sync="end"`` to ``build_library`` (one flush at the end,
 see ``cellbuild.fileio.sync_files``) once the batch takes it.
 """
@@ -34,6 +40,7 @@ from __future__ import annotations
 import argparse
 import os
 import resource
+import shutil
 import statistics
 import tempfile
 import time
@@ -66,6 +73,8 @@ def cpu_seconds() -> float:
 
 #: extra keywords of build_library (``--sync``); empty: the library's default
 SYNC: dict = {}
+#: ``--churn``: delete each repeat's outputs before the next repeat
+CHURN = False
 
 
 def time_batch(source: Path, workers: int, repeats: int) -> tuple[float, float, int, int]:
@@ -75,14 +84,20 @@ def time_batch(source: Path, workers: int, repeats: int) -> tuple[float, float, 
 
     walls, cpus = [], []
     for _ in range(repeats):
-        with tempfile.TemporaryDirectory(prefix="bench-out-", dir=source.parent) as out:
-            cpu, start = cpu_seconds(), time.perf_counter()
-            result = build_library(source, out, workers=workers, **SYNC)
-            walls.append(time.perf_counter() - start)
-            cpus.append(cpu_seconds() - cpu)
-            bad = [o for o in result.outcomes if o.status != "passed"]
-            if bad:
-                raise SystemExit(f"benchmark structure not built: {bad[0].error or bad[0].name}")
+        # Each repeat builds into a fresh folder, kept until the whole run ends
+        # (the enclosing temporary folder goes then): with ``--churn`` the folder
+        # goes right after its repeat, so the next build follows thousands of
+        # deletions, which some file systems make costly (see the module note).
+        out = tempfile.mkdtemp(prefix="bench-out-", dir=source.parent)
+        cpu, start = cpu_seconds(), time.perf_counter()
+        result = build_library(source, out, workers=workers, **SYNC)
+        walls.append(time.perf_counter() - start)
+        cpus.append(cpu_seconds() - cpu)
+        if CHURN:
+            shutil.rmtree(out)
+        bad = [o for o in result.outcomes if o.status != "passed"]
+        if bad:
+            raise SystemExit(f"benchmark structure not built: {bad[0].error or bad[0].name}")
     atoms = result.outcomes[0].n_atoms
     return statistics.median(walls), statistics.median(cpus), len(result.outcomes), atoms
 
@@ -121,6 +136,8 @@ def main() -> None:
                         help="folder for the recipes and outputs (default: the system's)")
     parser.add_argument("--sync", default=None, choices=["file", "end"],
                         help="durability passed to build_library (default: its own)")
+    parser.add_argument("--churn", action="store_true",
+                        help="delete each repeat's outputs before the next repeat")
     parser.add_argument("--profile", action="store_true", help="profile the small recipes")
     parser.add_argument("--profile-sort", default="cumulative",
                         help="pstats sort key of --profile (cumulative, tottime)")
@@ -128,6 +145,8 @@ def main() -> None:
                         help="--profile by CPU time instead of wall time")
     args = parser.parse_args()
     outputs = args.outputs.split(",")
+    global CHURN
+    CHURN = args.churn
 
     import cellbuild.pipeline  # noqa: F401 -- import cost is not part of the measurement
     from cellbuild.batch import build_library, default_workers
@@ -147,7 +166,8 @@ def main() -> None:
             profile_one(tmp / "small", args.profile_sort, args.profile_cpu)
             return
         print(f"outputs per structure: {', '.join(outputs)} + report (+ defects sidecar); "
-              f"folder {tmp.parent}; sync {args.sync or 'default'}")
+              f"folder {tmp.parent}; sync {args.sync or 'default'}; "
+              f"outputs {'deleted after each repeat' if CHURN else 'kept until the end'}")
         print(f"cores available: {default_workers()}; load average before: "
               f"{os.getloadavg()[0]:.2f} (other work on the machine skews the 2-worker rows)")
         print(f"{'recipe':>8} {'atoms':>7} {'workers':>7} {'structures':>10} "
