@@ -148,8 +148,8 @@ def plan_jobs(sources: Sequence[Source], out_root: Path,
             out_dir = out_root / source.rel_dir
             # Casefolded, because a library is shared between case-sensitive and
             # case-insensitive file systems: `Cu.lmp` and `cu.lmp` must not both exist.
-            paths = [Path(os.path.relpath(p, out_root)).as_posix()
-                     for p in planned_paths(point.recipe, out_dir)]
+            folder = os.path.relpath(out_dir, out_root)  # once, not per file: relpath is slow
+            paths = [p.as_posix() for p in planned_paths(point.recipe, folder)]
             clash = next((p for p in paths if p.casefold() in claimed), None)
             if clash is not None:
                 exc = InputError(f"would write `{clash}`, which {claimed[clash.casefold()]} "
@@ -166,24 +166,21 @@ def plan_jobs(sources: Sequence[Source], out_root: Path,
 
 
 def _expand(source: Source):
-    """The recipe file's sha256 and its sweep points; InputError names the manifest path."""
-    from .recipe import load_yaml
-    from .sweep import expand
+    """The recipe file's sha256 and its sweep points; InputError names the manifest path.
 
-    from .yamlread import MAX_BYTES
+    The file is read once (with the recipe size cap, so a recipe named for
+    /dev/zero or a huge file cannot hang the batch): the hash is that of the
+    bytes parsed."""
+    from .sweep import expand
+    from .yamlread import decode_text, parse_yaml, read_capped
 
     try:
-        data, lines = load_yaml(source.path)
+        raw = read_capped(source.path)
+        data, lines = parse_yaml(decode_text(raw, source.path), str(source.path))
     except InputError as exc:
         exc.file = source.recipe
         raise
-    # Hashed after the capped load above has accepted the file, and read with the
-    # same cap, so a recipe named for /dev/zero or a huge file cannot hang the batch.
-    try:
-        with open(source.path, "rb") as handle:
-            sha = hashlib.sha256(handle.read(MAX_BYTES + 1)).hexdigest()
-    except OSError as exc:
-        raise InputError(f"cannot be read ({exc.strerror or exc})", file=source.recipe) from None
+    sha = hashlib.sha256(raw).hexdigest()
     return sha, expand(data, lines, source.recipe, folder=str(Path(source.path).parent))
 
 

@@ -88,6 +88,12 @@ def read_text(path: str | Path) -> str:
     At most ``MAX_BYTES + 1`` bytes are read, so ``/dev/zero`` or a huge file is
     refused at once. Raises :class:`InputError` naming the file.
     """
+    return decode_text(read_capped(path), path)
+
+
+def read_capped(path: str | Path) -> bytes:
+    """The bytes of a recipe file, refused (:class:`InputError` naming the file)
+    when it cannot be read or holds more than :data:`MAX_BYTES`."""
     path = Path(path)
     try:
         with open(path, "rb") as handle:
@@ -102,6 +108,12 @@ def read_text(path: str | Path) -> str:
     if len(data) > MAX_BYTES:
         raise InputError(f"is larger than {MAX_BYTES // 2**20} MB, too large for a recipe",
                          hint="a recipe is a short YAML text file", file=str(path))
+    return data
+
+
+def decode_text(data: bytes, path: str | Path) -> str:
+    """``data`` (a recipe file's bytes) as UTF-8 text, or an :class:`InputError`
+    naming the file and the line of the first byte that is not UTF-8."""
     try:
         return data.decode("utf-8")
     except UnicodeDecodeError as exc:
