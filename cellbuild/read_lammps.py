@@ -7,7 +7,9 @@ and the numpy fast row reader: :func:`skip_lines` and :func:`load_rows` (the
 block of rows found by byte offsets, parsed in one call: the fixed-width parser
 of :mod:`cellbuild.fixed_columns`, else ``numpy.loadtxt``), which the
 extended XYZ fast path of :mod:`cellbuild.readers` shares, and
-:func:`fast_lammps`, which reads the atom rows into a :class:`Structure`.
+:func:`fast_lammps`, which reads the atom rows into a :class:`Structure`;
+:func:`header_and_rows` runs both, the header first taking equally wide rows on
+trust (no newline count over the whole block) and the rows' parse confirming it.
 The file is read once, as bytes, and shared by the header parser and the rows. Every failure is an
 :class:`~cellbuild.errors.InputError` naming the file and, where known, the line.
 """
@@ -38,6 +40,7 @@ _LAMMPS_STYLES = {"atomic": 5, "charge": 6}
 _LAMMPS_SECTIONS = ("Atoms", "Velocities", "Masses", "Atom Type Labels")
 #: A section keyword line (comment removed, stripped).
 _SECTION = re.compile(r"[A-Z][A-Za-z ]+")
+NEWLINE_BYTE = ord("\n")
 
 
 # ----------------------------------------------------------------------------- header
@@ -55,15 +58,26 @@ class LammpsHeader:
     atoms_line: int = 0  # 1-based line of the "Atoms" keyword
     atoms_offset: int | None = None  # byte offset of the line after it (None: CR line ends)
     general_box: bool = False
+    #: (first, past the last) byte offsets of the Atoms rows when the header took
+    #: them to be as wide as the first row on trust (see :func:`lammps_header`)
+    trusted_rows: tuple[int, int] | None = None
 
 
-def lammps_header(path: Path, data: bytes | None = None) -> LammpsHeader:
+def lammps_header(path: Path, data: bytes | None = None, *,
+                  trust_rows: bool = False) -> LammpsHeader:
     """Counts, box, masses and atom style; the atom rows are skipped, not parsed.
 
     ``data`` is the file's bytes when the caller has read them already. Lines
     are split as Python's text mode does (``\\r\\n`` and a lone ``\\r`` end a
     line too); the rows of the Atoms and Velocities sections are jumped over
     by byte offsets (:func:`skip_lines`), not read one Python line at a time.
+
+    ``trust_rows``: where every Atoms row looks as wide as the first (each row's
+    last byte a newline, as cellbuild writes them), skip them without counting
+    the newlines in between (a pass over the whole block) and record the rows'
+    span in ``trusted_rows``. The caller must then confirm that span by parsing
+    the rows (:func:`fast_lammps` does) and otherwise parse the header again
+    without trust: an unequal row could hide among them.
     """
     if data is None:
         data = path.read_bytes()
@@ -106,7 +120,13 @@ def lammps_header(path: Path, data: bytes | None = None) -> LammpsHeader:
             if section == "Atoms" and first_row is None:
                 first_row = line.split()
             skip = max(head.n_atoms - 1, 0)
-            after = skip_lines(text, pos, skip, row_bytes)
+            after = None
+            if trust_rows and section == "Atoms" and not crlf:
+                after = _rows_end_on_trust(text, pos, skip, row_bytes)
+                if after is not None:
+                    head.trusted_rows = (pos - row_bytes, after)
+            if after is None:
+                after = skip_lines(text, pos, skip, row_bytes)
             number += skip  # exact whenever a line follows the jump
             pos = size if after is None else after
             section = "after " + section
@@ -114,6 +134,16 @@ def lammps_header(path: Path, data: bytes | None = None) -> LammpsHeader:
         raise InputError("has no Atoms section (or no 'N atoms' line)", file=str(path))
     head.style = _lammps_style(path, head, style_comment, first_row)
     return head
+
+
+def _rows_end_on_trust(data: bytes, start: int, k: int, width: int) -> int | None:
+    """Offset past ``k`` rows of ``width`` bytes from ``start`` when each of them
+    ends in a newline (their last bytes alone are read), else None."""
+    stop = start + k * width
+    if k <= 0 or stop > len(data):
+        return None
+    ends = np.frombuffer(data, dtype=np.uint8, count=k * width, offset=start)[width - 1::width]
+    return stop if bool(np.all(ends == NEWLINE_BYTE)) else None
 
 
 def _mass_line(head: LammpsHeader, path: Path, text: str, number: int) -> None:
@@ -291,14 +321,48 @@ def load_rows(path: Path, data: bytes, start: int, first: int, n: int,
     return rows, stop
 
 
+def header_and_rows(path: Path, data: bytes, types) -> tuple[LammpsHeader, Structure | None]:
+    """The header (:func:`lammps_header`) and the atoms read with numpy
+    (:func:`fast_lammps`; None where ASE's general reader is needed).
+
+    The header first takes the atom rows on trust (``trust_rows``); the parse of
+    the rows then confirms their span (the fixed-width parser checks every row's
+    width, the other path counts the newlines). Anything else (an unequal row, a
+    refusal, rows that are not numbers) is judged again by a header that counted
+    every newline, so errors and fallbacks are those of the untrusting reader.
+    """
+    try:
+        head = lammps_header(path, data, trust_rows=True)
+    except InputError:
+        head = None  # perhaps a trusted skip gone wrong: judged again below
+    if head is not None and head.trusted_rows is None:
+        return head, fast_lammps(path, head, types, data)  # nothing was taken on trust
+    if head is not None:
+        try:
+            structure, span = _fast_rows(path, head, types, data)
+        except InputError:
+            structure, span = None, None
+        if structure is not None and span == head.trusted_rows:
+            return head, structure
+    head = lammps_header(path, data)
+    return head, fast_lammps(path, head, types, data)
+
+
 def fast_lammps(path: Path, head: LammpsHeader, types, data: bytes | None = None
                 ) -> Structure | None:
     """LAMMPS atom rows with numpy; None if the file needs ASE's general reader.
 
     ``data`` is the file's bytes when the caller has read them already.
     """
+    return _fast_rows(path, head, types, data)[0]
+
+
+def _fast_rows(path: Path, head: LammpsHeader, types, data: bytes | None = None
+               ) -> tuple[Structure | None, tuple[int, int] | None]:
+    """:func:`fast_lammps`, and the byte span of the rows parsed (None with no
+    structure)."""
     if head.general_box:
-        return None
+        return None, None
     if data is None:
         data = path.read_bytes()
     first = head.atoms_line  # 0-based index of the line after "Atoms" (blank)
@@ -318,9 +382,9 @@ def fast_lammps(path: Path, head: LammpsHeader, types, data: bytes | None = None
         images = (n_cols, n_cols + 1, n_cols + 2) if width == n_cols + 3 else ()
         charge = (2,) if head.style == "charge" else ()  # id type q x y z
         usecols = (0, 1) + xyz_cols + images + charge
-        rows, _ = load_rows(path, data, start, first, head.n_atoms, usecols, np.float64)
+        rows, stop = load_rows(path, data, start, first, head.n_atoms, usecols, np.float64)
     except ValueError:
-        return None
+        return None, None
     ids = rows[:, 0]
     if not bool(np.all(ids[1:] >= ids[:-1])):  # ASE orders atoms by id (stable)
         rows = rows[np.argsort(ids, kind="stable")]
@@ -341,7 +405,7 @@ def fast_lammps(path: Path, head: LammpsHeader, types, data: bytes | None = None
     for t in used:
         code_of_type[t] = unique.index(symbols[int(t)])
     return Structure(cell=cell, positions=positions, species=code_of_type[type_of],
-                     symbols=unique, charges=rows[:, -1].copy() if charge else None)
+                     symbols=unique, charges=rows[:, -1].copy() if charge else None), (start, stop)
 
 
 def _lammps_cell(b: dict) -> np.ndarray:

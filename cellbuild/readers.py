@@ -30,7 +30,7 @@ from .cif_text import (check_cif_complete, check_cif_loop_rows, check_cif_number
 from .errors import InputError
 from .formats import FORMATS, format_named, format_sniffed, title_of
 from .read_checks import check_claimed_counts, check_poscar, check_values
-from .read_lammps import element_of_mass, fast_lammps, lammps_header, load_rows, type_symbols
+from .read_lammps import element_of_mass, header_and_rows, load_rows, type_symbols
 from .structure import Structure
 
 # element_of_mass lives in read_lammps and stays importable from here.
@@ -282,10 +282,9 @@ def read_poscar(path: Path, types, fast) -> ReadResult:
 
 def read_lammps(path: Path, types, fast) -> ReadResult:
     data = path.read_bytes()  # read once: the header parser and the rows share it
-    header = lammps_header(path, data)
     # the numpy reader validates every atom row, so that ASE is not handed a
     # malformed one (it raises RuntimeError or TypeError on those)
-    structure = fast_lammps(path, header, types, data)
+    header, structure = header_and_rows(path, data, types)
     if structure is None and not header.general_box:
         raise _unreadable(path, "lammps-data", ValueError("an atom row is not numbers"))
     if fast and structure is not None:

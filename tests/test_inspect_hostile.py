@@ -301,3 +301,63 @@ def test_huge_or_non_finite_numbers_are_refused_with_the_line(tmp_path, fmt, val
     code, output, _ = inspect_cli(path)
     one_sentence_refusal(code, output)
     assert f"line {k + 1}" in output, output
+
+
+# ----------------------------------------------------------------------------- rows taken on trust
+
+
+def _cellbuild_lammps(tmp_path):
+    """A LAMMPS data file as cellbuild writes it (every atom row equally wide)."""
+    from cellbuild.formats import write_structure
+    from cellbuild.structure import Structure
+
+    path = tmp_path / "cu.lmp"
+    write_structure(Structure.from_ase(cu()), "lammps-data", path, title="cu")
+    return path
+
+
+def test_lammps_rows_taken_on_trust_are_confirmed_by_their_parse(tmp_path):
+    """The header skips equally wide rows without counting their newlines; the
+    fixed-width parse of exactly that span confirms it, and the atoms are those of
+    the reader that counts every newline (and, by the ASE comparison in
+    test_inspect.py, ASE's)."""
+    from cellbuild.read_lammps import fast_lammps, header_and_rows, lammps_header
+
+    path = _cellbuild_lammps(tmp_path)
+    data = path.read_bytes()
+    head, structure = header_and_rows(path, data, None)
+    assert head.trusted_rows is not None and head.trusted_rows[1] == len(data)
+    counted = lammps_header(path, data)
+    assert counted.trusted_rows is None
+    reference = fast_lammps(path, counted, None, data)
+    assert np.array_equal(structure.positions, reference.positions)
+    assert np.array_equal(structure.species, reference.species)
+    assert structure.symbols == reference.symbols == ("Cu",)
+
+
+def test_lammps_rows_taken_on_trust_are_judged_again_when_one_is_unequal(tmp_path):
+    """A row one byte short followed by a blank line keeps every row end where the
+    first row's width puts it, so the header's trust holds up to the parse, which
+    finds the unequal row: the file is then judged as the counting reader judges it,
+    refused in one sentence, as LAMMPS refuses it (read_data reads the blank line
+    as an atom; common practice: no blank line among the Atoms rows)."""
+    from lammps_run import run_lammps
+
+    path = _cellbuild_lammps(tmp_path)
+    lines = path.read_text().split("\n")
+    first = next(i for i, ln in enumerate(lines) if ln.startswith("Atoms")) + 2
+    k = first + 5
+    assert lines[k].startswith(" ") and len(lines[k]) == len(lines[first])
+    lines[k] = lines[k][1:] + "\n"  # one byte shorter, then an empty line
+    path.write_text("\n".join(lines))
+    from cellbuild.read_lammps import _fast_rows, lammps_header
+
+    data = path.read_bytes()
+    trusting = lammps_header(path, data, trust_rows=True)
+    assert trusting.trusted_rows == (trusting.trusted_rows[0], len(data))  # trust held here
+    assert _fast_rows(path, trusting, None, data) == (None, None)  # the parse finds the row
+    code, output, _ = inspect_cli(path)
+    one_sentence_refusal(code, output)
+    assert "Atoms rows" in output
+    with pytest.raises(AssertionError, match="LAMMPS failed"):
+        run_lammps(f"units metal\natom_style atomic\nread_data {path}\n", tmp_path)
