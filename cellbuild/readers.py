@@ -24,9 +24,9 @@ from pathlib import Path
 
 import numpy as np
 
-from .cif_text import (check_cif_complete, check_cif_loop_rows, check_cif_numbers,
-                       check_cif_symbol_column, cif_loops, cif_partial_occupancy, fast_p1_cif,
-                       plain_atom_table, refuse_large_cif_table)
+from .cif_checks import (check_cif_complete, check_cif_loop_rows, check_cif_numbers,
+                         check_cif_symbol_column, refuse_large_cif_table)
+from .cif_text import cif_loops, cif_partial_occupancy, fast_p1_cif, plain_atom_table
 from .errors import InputError
 from .formats import FORMATS, format_named, format_sniffed, title_of
 from .read_checks import check_claimed_counts, check_poscar, check_values
