@@ -445,6 +445,15 @@ def main(argv: Optional[List[str]] = None) -> None:
              "structure or file.")
         code = EXIT_BAD_INPUT
     except Exception as exc:  # a bug, not bad input: one sentence, its own exit code
+        from .errors import interruption_behind
+
+        signal_exc = interruption_behind(exc)  # a signal met inside an import, say
+        if isinstance(signal_exc, KeyboardInterrupt):
+            _say("interrupted; no partial files were left")
+            sys.exit(EXIT_INTERRUPTED)
+        if isinstance(signal_exc, SystemExit) and signal_exc.code == EXIT_TERMINATED:
+            _say("terminated; no partial files were left")
+            sys.exit(EXIT_TERMINATED)
         if _State.debug:
             raise
         text = " ".join(str(exc).split())[:300]

@@ -123,3 +123,22 @@ def _render(value, depth: int) -> str:
     if isinstance(value, str) and len(value) > 4 * MAX_SHOWN:
         value = value[:2 * MAX_SHOWN] + value[-MAX_SHOWN:]  # only the ends are shown anyway
     return one_line(repr(value))
+
+
+def interruption_behind(exc: BaseException) -> BaseException | None:
+    """The ``KeyboardInterrupt`` or ``SystemExit`` (a signal handler's) that ``exc``
+    was raised from, if any, or None.
+
+    A signal that arrives while a compiled extension module initialises (the
+    first ``import spglib`` of a build, say) reaches the caller as an
+    ``ImportError("initialization failed")`` caused by the handler's exception:
+    that is the signal, not a bug, and must end the run as the signal would.
+    """
+    seen = set()
+    link = exc
+    while link is not None and id(link) not in seen:
+        if isinstance(link, (KeyboardInterrupt, SystemExit)):
+            return link
+        seen.add(id(link))
+        link = link.__cause__ or link.__context__
+    return None

@@ -22,7 +22,7 @@ from dataclasses import replace
 from pathlib import Path
 from typing import Callable, Iterator, Sequence
 
-from .errors import InputError
+from .errors import InputError, interruption_behind
 from .outcomes import Job, Outcome, error_outcome
 
 #: Largest number of structures sent to a worker at once: enough to make the
@@ -71,6 +71,9 @@ def build_job(job: Job) -> Outcome:
         return error_outcome(job.name, job.source, job.recipe_sha256, error, job.sweep,
                              time.perf_counter() - start, write_problem=exc.strerror or str(exc))
     except Exception as exc:  # noqa: BLE001 -- a bug met by one structure must not stop the library
+        signal_exc = interruption_behind(exc)  # a signal met inside an import, say
+        if signal_exc is not None:
+            raise signal_exc from None  # the worker stops, as the signal asks
         return crashed(job, exc)
     report = result.report
     prefix = f"{job.source.rel_dir}/" if job.source.rel_dir else ""

@@ -51,6 +51,49 @@ def test_a_bug_exits_3_with_one_sentence_not_as_bad_input(tmp_path, capsys, monk
     assert len(err.strip().splitlines()) == 1 and "Traceback" not in err
 
 
+@pytest.mark.parametrize("signal_exc,code,words", [
+    (SystemExit(143), 143, "terminated; no partial files were left"),
+    (KeyboardInterrupt(), 130, "interrupted; no partial files were left")])
+def test_a_signal_met_inside_an_import_ends_the_run_as_the_signal(tmp_path, capsys, monkeypatch,
+                                                                  signal_exc, code, words):
+    """A signal whose handler raises while a compiled extension initialises (the
+    audit's first `import spglib`) reaches the caller as ImportError('initialization
+    failed') raised from the handler's exception (seen with SIGTERM mid-build): the
+    run ends as the signal asks (128 + signal number, common practice), not as a bug,
+    and the staged files are gone."""
+    import cellbuild.pipeline as pipeline
+
+    def interrupted_import(*args, **kwargs):
+        raise ImportError("initialization failed") from signal_exc
+
+    monkeypatch.setattr(pipeline, "audit", interrupted_import)
+    recipe = tmp_path / "r.yaml"
+    recipe.write_text(GOOD)
+    got, _, err = _main(["make", recipe, "--out", tmp_path / "out"], capsys)
+    assert got == code and err.strip() == words
+    assert list((tmp_path / "out").iterdir()) == []
+
+
+def test_a_worker_stops_on_a_signal_met_inside_an_import(tmp_path, monkeypatch):
+    """In a batch worker the same ImportError is the signal: the job re-raises the
+    handler's exception (so the worker ends), instead of recording a crash and
+    building on."""
+    import cellbuild.pipeline as pipeline
+    from cellbuild.batch import discover, plan_jobs
+    from cellbuild.pool import Terminated, build_job
+
+    def interrupted_import(*args, **kwargs):
+        raise ImportError("initialization failed") from Terminated(143)
+
+    (tmp_path / "lib").mkdir()
+    (tmp_path / "lib" / "r.yaml").write_text(GOOD)
+    jobs, failed = plan_jobs(discover(tmp_path / "lib", tmp_path / "out"), tmp_path / "out")
+    assert len(jobs) == 1 and not failed
+    monkeypatch.setattr(pipeline, "make", interrupted_import)
+    with pytest.raises(Terminated):
+        build_job(jobs[0])
+
+
 def test_bad_input_still_exits_2(tmp_path, capsys):
     recipe = tmp_path / "r.yaml"
     recipe.write_text(GOOD.replace("3.615", "-1"))
