@@ -213,8 +213,9 @@ def build_library(source_dir: str | os.PathLike, out: str | os.PathLike, *,
     ``sync`` says when the files are flushed to the disk (:data:`SYNC_CHOICES`):
     ``"file"`` each file before it takes its name; ``"end"`` all of them once,
     after the last structure and before the manifest (which vouches for them)
-    is written (one ``syncfs`` per file system on Linux, see
-    :func:`cellbuild.fileio.flush_file_systems`). Either way each file appears whole; they differ only after a
+    is written: with the local pool one ``syncfs`` per file system on Linux
+    (:func:`cellbuild.fileio.flush_file_systems`); with Dask workers, which may
+    write from other machines, one ``fsync`` per file from this process. Either way each file appears whole; they differ only after a
     power cut or a crash of the machine, where ``end`` may leave files written
     since the start empty, with no new manifest listing them.
 
@@ -266,9 +267,13 @@ def build_library(source_dir: str | os.PathLike, out: str | os.PathLike, *,
     manifest = make_manifest(outcomes, source=_relative(source_dir, out))
     removed = remove_stale(out, previous, manifest)
     if sync == "end":  # before the manifest that vouches for them
-        from .fileio import flush_file_systems
+        from .fileio import flush_file_systems, sync_files
 
-        flush_file_systems(out / path for path in sorted(listed_paths(manifest)))
+        written = [out / path for path in sorted(listed_paths(manifest))]
+        if executor.kind == "pool":  # every file went through this machine's kernel
+            flush_file_systems(written)
+        else:  # workers may write from other machines: flush each file (on NFS, a
+            sync_files(written)  # commit on its server), which this kernel's syncfs is not
     write_manifest(manifest_path, manifest)
     return BatchResult(outcomes, manifest, manifest_path, removed, temporaries, lost,
                        executor.description, executor.kind)

@@ -75,3 +75,26 @@ def test_an_unknown_sync_choice_is_bad_input_before_anything_is_written(tmp_path
         build_library(lib, lib / "out", workers=1, sync="never")
     assert err.value.key == "--sync"
     assert not (lib / "out").exists()
+
+
+def test_sync_end_with_workers_elsewhere_flushes_each_file(tmp_path, monkeypatch):
+    """Dask workers may write from other machines, whose data this machine's
+    syncfs does not reach (syncfs(2) flushes this kernel's pages of one file
+    system): each listed file is then flushed on its own, as before syncfs was
+    used (fsync(2); on NFS a commit of that file on its server)."""
+    from cellbuild.executors import LocalPool
+
+    class Elsewhere(LocalPool):
+        kind = "dask"  # stands for workers this process cannot see into
+
+    lib = _library(tmp_path)
+    flushed, per_file = [], []
+    monkeypatch.setattr(fileio, "flush_file_systems", lambda paths: flushed.append(list(paths)))
+    real_sync = fileio.sync_files
+    monkeypatch.setattr(fileio, "sync_files",
+                        lambda paths, **kw: per_file.append(list(paths)) or real_sync(paths, **kw))
+    result = build_library(lib, lib / "out", executor=Elsewhere(1), sync="end")
+    assert result.exit_code == 0 and flushed == []
+    listed = sorted(info["path"] for e in result.manifest["structures"]
+                    for info in e["outputs"].values())
+    assert [sorted(Path(p).relative_to(lib / "out").as_posix() for p in per_file[0])] == [listed]
