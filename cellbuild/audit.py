@@ -53,6 +53,7 @@ def expected_coordination(structure: Structure, crystal: Crystal,
     n_grid = crystal.n_grid
     shape = (*repeat, n_grid)
     table = _neighbour_sites(crystal, tuple(repeat))
+    # every atom on a grid site (a site id of -1 would index the table's padding slot)
     if table is not None and (structure.n_atoms == 0 or int(structure.site.min()) >= 0):
         occupied = np.zeros(math.prod(shape) + 1, dtype=np.uint8)  # last: the padding slot
         occupied[structure.site] = 1

@@ -156,6 +156,7 @@ def _find_grid_sites(cell: np.ndarray, frac: np.ndarray, tol: float):
 
     A seeded sample of the atoms proposes the grid, which is cheap; only if
     some atom is then off that grid are all atoms sorted to find the grid.
+    Up to :data:`_GRID_SAMPLE` atoms, all of them propose it at once.
     Any grid that holds all atoms holds the sample too, so a sample that fits
     no grid rules the whole set out.
     """
