@@ -23,6 +23,7 @@ import math
 import numpy as np
 from numba import njit
 
+from .crystal import supercell_bonds
 from .errors import InputError
 from .short_range_order import VACANCY, sublattice_shells
 
@@ -190,17 +191,14 @@ def neighbour_table(crystal, repeat, label: str, n_shells: int):
     index = np.full(n_cells * crystal.n_grid, -1, dtype=np.int64)
     index[ids] = np.arange(len(ids))
     distances, shells = sublattice_shells(crystal, label, n_shells)
-    cells = np.arange(n_cells)
-    ijk = np.stack(np.unravel_index(cells, repeat), axis=1)
     zmax = max(sum(1 for o in offsets if o[0] == local[0]) for offsets in shells)
     table = np.full((len(shells), len(ids), zmax), -1, dtype=np.int64)
     for k, offsets in enumerate(shells):
         fill = np.zeros(len(ids), dtype=np.int64)
-        for s, shift, t in offsets:
-            neighbour_cell = np.ravel_multi_index(((ijk + np.array(shift)) % np.array(repeat)).T,
-                                                  repeat)
-            rows = index[cells * crystal.n_grid + s]
-            partner = index[neighbour_cell * crystal.n_grid + t]
+        centre, far = supercell_bonds(repeat, crystal.n_grid, offsets)  # (cells, offsets)
+        for b in range(len(offsets)):  # a handful of offsets
+            rows = index[centre[:, b]]
+            partner = index[far[:, b]]
             # a site's own image (a cell shorter than the shell) is no bond to swap across
             table[k, rows, fill[rows]] = np.where(partner == rows, -1, partner)
             fill[rows] += 1
