@@ -125,6 +125,8 @@ def test_expected_coordination_by_table_and_by_shifts_match_ase(lattice, site, g
     if not gather:
         monkeypatch.setattr(audit, "_TABLE_ENTRIES", 0)
     try:
+        # lattice constants (Angstrom, from memory): Si 5.43, Cu 3.615 (Kittel); the
+        # check itself is ASE's count, whatever the constant
         b = _built(lattice=lattice, a=5.43 if lattice == "diamond" else 3.615, repeat=(3, 4, 2),
                    vacancies={"count": 3}, substitutions=[{"element": "Ni", "count": 4}],
                    interstitials=[{"element": "C", "site": site, "count": 2}])
